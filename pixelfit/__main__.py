@@ -1,0 +1,3 @@
+from pixelfit.cli import main
+
+raise SystemExit(main())

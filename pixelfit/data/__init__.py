@@ -1,0 +1,19 @@
+"""Import, binarize and split: numpy and Pillow only."""
+
+from pixelfit.data._binarize import METHODS, Binarizer, otsu_threshold
+from pixelfit.data._import import (
+    MAX_SIDE,
+    Dataset,
+    Skipped,
+    binary_target,
+    choose_positive,
+    load_dataset,
+    read_patch,
+)
+from pixelfit.data._split import fingerprint, raw_fingerprint, stratified_split
+
+__all__ = [
+    "METHODS", "Binarizer", "otsu_threshold", "MAX_SIDE", "Dataset", "Skipped", "binary_target",
+    "choose_positive", "load_dataset", "read_patch", "fingerprint", "raw_fingerprint",
+    "stratified_split",
+]

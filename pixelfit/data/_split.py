@@ -1,0 +1,59 @@
+"""The held-out split, and the fingerprint that ties results to the exact training data."""
+
+from __future__ import annotations
+
+import hashlib
+
+import numpy as np
+from sklearn.model_selection import train_test_split
+
+from pixelfit.errors import TrainingError
+
+
+def stratified_split(y: np.ndarray, test_fraction: float = 0.25, seed: int = 0) -> np.ndarray:
+    """Boolean mask of shape (n_patches,), True for held-out patches, stratified on ``y``.
+
+    The same ``y``, fraction and seed always give the same split.
+    """
+    if not 0 < test_fraction < 1:
+        raise TrainingError(f"--test-fraction must be between 0 and 1, not {test_fraction}")
+    y = np.asarray(y)
+    classes, counts = np.unique(y, return_counts=True)
+    if counts.min() < 2:
+        raise TrainingError(
+            f"class {classes[np.argmin(counts)]!r} has {counts.min()} patch(es); a stratified split needs at least 2 per class"
+        )
+    idx = np.arange(len(y))
+    try:
+        _, test_idx = train_test_split(idx, test_size=test_fraction, random_state=seed, stratify=y)
+    except ValueError as exc:
+        raise TrainingError(f"cannot split {len(y)} patches with --test-fraction {test_fraction}: {exc}") from None
+    mask = np.zeros(len(y), bool)
+    mask[test_idx] = True
+    return mask
+
+
+def fingerprint(X: np.ndarray, y: np.ndarray) -> str:
+    """SHA-256 over binarized patches and their labels, as hex.
+
+    Parameters
+    ----------
+    X : ndarray of shape (n_patches, height, width) or (n_patches, n_pixels), bool
+    y : ndarray of shape (n_patches,), bool
+    """
+    X = np.ascontiguousarray(np.asarray(X, dtype=bool))
+    h = hashlib.sha256()
+    h.update(repr(X.shape).encode())
+    h.update(np.packbits(X.reshape(len(X), -1), axis=1).tobytes())
+    h.update(np.packbits(np.asarray(y, dtype=bool)).tobytes())
+    return h.hexdigest()
+
+
+def raw_fingerprint(images: np.ndarray, labels: np.ndarray) -> str:
+    """SHA-256 over the imported grayscale patches and their class names, as hex."""
+    h = hashlib.sha256()
+    images = np.ascontiguousarray(images, dtype=np.uint8)
+    h.update(repr(images.shape).encode())
+    h.update(images.tobytes())
+    h.update("\n".join(map(str, labels)).encode())
+    return h.hexdigest()

@@ -1,0 +1,19 @@
+"""Metrics with intervals, bounds, rung comparison and importance maps."""
+
+from pixelfit.evaluate._bounds import (
+    consistent_sample_size,
+    hoeffding_bound,
+    log2_comb,
+    log2_lut_class,
+    log2_memorize_class,
+    log2_tree_class,
+    vc_bound,
+    vc_confidence,
+)
+from pixelfit.evaluate._metrics import confusion, detection_metrics, error_rate, wilson_interval
+
+__all__ = [
+    "consistent_sample_size", "hoeffding_bound", "log2_comb", "log2_lut_class",
+    "log2_memorize_class", "log2_tree_class", "vc_bound", "vc_confidence", "confusion",
+    "detection_metrics", "error_rate", "wilson_interval",
+]

@@ -1,0 +1,310 @@
+"""The model families of the ladder, each with its size axis, its size figures and its bound.
+
+A family turns a size into an unfitted scikit-learn estimator; everything else pixelfit needs to
+know about a family (how many parameters, how big its rule class is, which bound applies, what
+its own importance map is) lives here too, so the ladder treats all families alike.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from collections.abc import Callable
+from dataclasses import dataclass
+from functools import partial
+
+import numpy as np
+from sklearn.base import BaseEstimator, ClassifierMixin
+from sklearn.exceptions import ConvergenceWarning
+from sklearn.feature_selection import SelectKBest, mutual_info_classif
+from sklearn.linear_model import LogisticRegression
+from sklearn.naive_bayes import BernoulliNB
+from sklearn.neural_network import MLPClassifier
+from sklearn.pipeline import Pipeline
+from sklearn.svm import l1_min_c
+from sklearn.tree import DecisionTreeClassifier
+from sklearn.utils.validation import check_is_fitted
+
+from pixelfit.errors import TrainingError
+from pixelfit.evaluate._bounds import (
+    hoeffding_bound,
+    log2_comb,
+    log2_lut_class,
+    log2_memorize_class,
+    log2_tree_class,
+    vc_bound,
+)
+from pixelfit.models._rules import ConstantRule, LutRule, MemorizeRule
+
+FAMILY_ORDER = ("constant", "lut", "nb", "logistic", "tree", "mlp", "memorize")
+
+
+class SparseLogistic(ClassifierMixin, BaseEstimator):
+    """L1-penalised logistic regression whose penalty is tuned to keep at most k pixel weights.
+
+    ``fit`` searches the inverse penalty C (bisection on log C, liblinear solver) for the largest
+    number of non-zero weights not above k; with k >= n_pixels the penalty is made negligible.
+
+    Attributes
+    ----------
+    model_ : LogisticRegression
+    C_ : float
+    n_nonzero_ : int
+    coef_, intercept_, classes_ : as in ``LogisticRegression``
+    """
+
+    def __init__(self, k: int = 1, max_steps: int = 30):
+        self.k = k
+        self.max_steps = max_steps
+
+    def _fit_c(self, X, y, C):
+        m = LogisticRegression(l1_ratio=1.0, solver="liblinear", C=C, max_iter=1000, random_state=0)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", ConvergenceWarning)
+            m.fit(X, y)
+        return m, int(np.count_nonzero(m.coef_))
+
+    def fit(self, X, y):
+        X = np.asarray(X, dtype=np.float64)
+        k = int(self.k)
+        p = X.shape[1]
+        if k < 1:
+            raise TrainingError(f"logistic size k={k} must be at least 1")
+        if len(np.unique(y)) < 2:
+            raise TrainingError("logistic regression needs both classes in the training data")
+        lo = l1_min_c(X, y, loss="log") if X.any() else 1.0
+        best = None
+        if k >= p:
+            best = self._fit_c(X, y, lo * 1e6) + (lo * 1e6,)
+        else:
+            log_lo, log_hi = math.log(lo), math.log(lo * 1e6)
+            for _ in range(self.max_steps):
+                mid = (log_lo + log_hi) / 2
+                model, nnz = self._fit_c(X, y, math.exp(mid))
+                if nnz <= k and (best is None or nnz > best[1] or (nnz == best[1] and mid > math.log(best[2]))):
+                    best = (model, nnz, math.exp(mid))
+                if nnz == k and log_hi - log_lo < 0.05:
+                    break
+                if nnz <= k:
+                    log_lo = mid
+                else:
+                    log_hi = mid
+            if best is None:
+                best = self._fit_c(X, y, lo) + (lo,)
+        self.model_, self.n_nonzero_, self.C_ = best
+        self.classes_ = self.model_.classes_
+        self.coef_ = self.model_.coef_
+        self.intercept_ = self.model_.intercept_
+        self.n_features_in_ = p
+        return self
+
+    def decision_function(self, X):
+        check_is_fitted(self, "model_")
+        return self.model_.decision_function(np.asarray(X, dtype=np.float64))
+
+    def predict(self, X):
+        check_is_fitted(self, "model_")
+        return self.model_.predict(np.asarray(X, dtype=np.float64))
+
+    def predict_proba(self, X):
+        check_is_fitted(self, "model_")
+        return self.model_.predict_proba(np.asarray(X, dtype=np.float64))
+
+
+def _powers_up_to(limit: int, top: int) -> list[int]:
+    sizes = [1]
+    while sizes[-1] * 2 < limit:
+        sizes.append(sizes[-1] * 2)
+    sizes = [s for s in sizes if s <= top]
+    if limit <= top and limit not in sizes:
+        sizes.append(limit)
+    return sizes
+
+
+@dataclass(frozen=True)
+class Family:
+    """One family of the ladder.
+
+    ``make(size, n_pixels, seed)`` returns an unfitted estimator; ``default_sizes(n_pixels)`` the
+    sizes tried by default; ``scored`` says whether the family gives a graded score (probability)
+    rather than a hard label only.
+    """
+
+    name: str
+    description: str
+    size_name: str
+    make: Callable[[int, int, int], BaseEstimator]
+    default_sizes: Callable[[int], list[int]]
+    scored: bool = True
+    fixed_size: bool = False
+
+
+def _make_nb(k, p, seed):
+    mi = partial(mutual_info_classif, discrete_features=True, random_state=seed)
+    return Pipeline([("select", SelectKBest(mi, k=min(k, p))), ("nb", BernoulliNB(alpha=1.0))])
+
+
+FAMILIES: dict[str, Family] = {
+    "constant": Family("constant", "always the training majority", "size", lambda s, p, seed: ConstantRule(),
+                       lambda p: [0], scored=False, fixed_size=True),
+    "lut": Family("lut", "truth table over the k best pixels", "pixels", lambda k, p, seed: LutRule(k=k),
+                  lambda p: [k for k in (1, 2, 3, 4) if k <= p]),
+    "nb": Family("nb", "Bernoulli naive Bayes on the k most informative pixels", "pixels", _make_nb,
+                 lambda p: _powers_up_to(p, p)),
+    "logistic": Family("logistic", "L1 logistic regression with k non-zero pixel weights", "pixels",
+                       lambda k, p, seed: SparseLogistic(k=k), lambda p: _powers_up_to(p, p)),
+    "tree": Family("tree", "decision tree of depth d", "depth",
+                   lambda d, p, seed: DecisionTreeClassifier(max_depth=d, random_state=seed),
+                   lambda p: list(range(1, 9))),
+    "mlp": Family("mlp", "one hidden layer of h units", "hidden units",
+                  lambda h, p, seed: MLPClassifier(hidden_layer_sizes=(h,), solver="lbfgs", max_iter=400,
+                                                   alpha=1e-3, random_state=seed),
+                  lambda p: [1, 2, 4, 8, 16, 32, 64]),
+    "memorize": Family("memorize", "truth table over the whole patch", "pixels",
+                       lambda s, p, seed: MemorizeRule(), lambda p: [p], scored=True, fixed_size=True),
+}
+
+
+def parse_families(text: str | None) -> list[str]:
+    """Family names from a comma-separated list (None: all), in ladder order."""
+    if text is None or text.strip() in ("", "all"):
+        return list(FAMILY_ORDER)
+    names = [t.strip() for t in text.split(",") if t.strip()]
+    unknown = [n for n in names if n not in FAMILIES]
+    if unknown:
+        raise TrainingError(f"unknown famil{'y' if len(unknown) == 1 else 'ies'} {', '.join(unknown)}; choose from {', '.join(FAMILY_ORDER)}")
+    return [f for f in FAMILY_ORDER if f in names]
+
+
+def parse_size_overrides(items: list[str] | None) -> dict[str, list[int]]:
+    """``FAMILY=1,2,5`` items into {family: sizes}."""
+    out: dict[str, list[int]] = {}
+    for item in items or []:
+        fam, sep, rest = item.partition("=")
+        fam = fam.strip()
+        if not sep or fam not in FAMILIES:
+            raise TrainingError(f"--sizes takes FAMILY=LIST with a family from {', '.join(FAMILY_ORDER)}; got {item!r}")
+        try:
+            sizes = sorted({int(s) for s in rest.split(",") if s.strip()})
+        except ValueError:
+            raise TrainingError(f"--sizes {item!r}: sizes must be whole numbers") from None
+        if not sizes or min(sizes) < 1:
+            raise TrainingError(f"--sizes {item!r}: give at least one size, each at least 1")
+        out[fam] = sizes
+    return out
+
+
+def plan_rungs(families: list[str], n_pixels: int, max_size: int | None = None,
+               overrides: dict[str, list[int]] | None = None) -> list[tuple[str, int]]:
+    """(family, size) pairs of the ladder, smallest first within each family.
+
+    ``max_size`` caps every size axis except the two fixed ends (constant and memorize).
+    """
+    overrides = overrides or {}
+    rungs: list[tuple[str, int]] = []
+    for name in families:
+        fam = FAMILIES[name]
+        if fam.fixed_size:
+            rungs.append((name, fam.default_sizes(n_pixels)[0]))
+            continue
+        sizes = overrides.get(name, fam.default_sizes(n_pixels))
+        if name in ("lut", "nb", "logistic"):
+            too_big = [s for s in sizes if s > n_pixels]
+            if too_big:
+                raise TrainingError(f"{name} size {too_big[0]} is larger than the {n_pixels} pixels of a patch")
+        if max_size is not None:
+            sizes = [s for s in sizes if s <= max_size]
+        rungs.extend((name, s) for s in sizes)
+    return rungs
+
+
+def size_figures(family: str, est, size: int, n_pixels: int) -> dict:
+    """Parameters, rule-class size (log2) where finite, VC dimension where that is the measure."""
+    log2_h = None
+    vc = None
+    if family == "constant":
+        params, log2_h = 1, 1.0
+    elif family == "lut":
+        params, log2_h = size + 2**size, log2_lut_class(n_pixels, size)
+    elif family == "memorize":
+        params, log2_h = int(len(est.patterns_)), log2_memorize_class(n_pixels)
+    elif family == "nb":
+        k = int(est.named_steps["select"].get_support().sum())
+        params, vc = 2 * k + 1, k + 1
+    elif family == "logistic":
+        k = int(est.n_nonzero_)
+        params, vc = k + 1, k + 1
+    elif family == "tree":
+        params = int(est.tree_.node_count)
+        log2_h = log2_tree_class(n_pixels, size)
+    elif family == "mlp":
+        params = int(sum(c.size for c in est.coefs_) + sum(b.size for b in est.intercepts_))
+    else:
+        raise TrainingError(f"unknown family {family}")
+    return {"parameters": params, "log2_class_size": log2_h, "vc_dim": vc}
+
+
+def generalization_bound(family: str, figures: dict, train_error: float, m: int, n_pixels: int,
+                         delta: float = 0.05) -> dict | None:
+    """The bound that applies to the family, as {'error_upper', 'method', 'delta'}; None if none."""
+    if figures["log2_class_size"] is not None:
+        return {"error_upper": hoeffding_bound(train_error, figures["log2_class_size"], m, delta),
+                "method": "hoeffding-union (finite class, one-sided, ln(1/delta))", "delta": delta}
+    if figures["vc_dim"] is not None:
+        k = figures["vc_dim"] - 1
+        return {"error_upper": vc_bound(train_error, figures["vc_dim"], m, delta, log2_comb(n_pixels, k)),
+                "method": "vapnik-vc (h = k + 1, union over the C(p, k) pixel choices, ln(4/delta))", "delta": delta}
+    return None
+
+
+def native_importance(family: str, est, X: np.ndarray, y: np.ndarray, shape: tuple[int, int]) -> np.ndarray | None:
+    """The family's own per-pixel importance, shape ``shape``; None where the family has none.
+
+    lut: the rise in training error rate when each chosen pixel is dropped (best table on the
+    others); logistic: the coefficients; nb: per-pixel log-odds weight of a lit pixel; tree:
+    impurity importance.
+    """
+    p = shape[0] * shape[1]
+    out = np.zeros(p)
+    if family == "lut":
+        base = est.train_errors_ / len(y)
+        pix = est.pixels_
+        yb = np.asarray(y == est.classes_[-1])
+        for j, pixel in enumerate(pix):
+            rest = np.delete(pix, j)
+            if len(rest) == 0:
+                err = min(yb.mean(), 1 - yb.mean())
+            else:
+                codes = X[:, rest].astype(np.intp) @ (1 << np.arange(len(rest)))
+                cp = np.bincount(codes[yb], minlength=2 ** len(rest))
+                cn = np.bincount(codes[~yb], minlength=2 ** len(rest))
+                err = np.minimum(cp, cn).sum() / len(y)
+            out[pixel] = err - base
+    elif family == "logistic":
+        out = est.coef_.ravel().astype(np.float64)
+    elif family == "nb":
+        sel = est.named_steps["select"].get_support()
+        nb = est.named_steps["nb"]
+        lp = nb.feature_log_prob_
+        out[sel] = (lp[1] - lp[0]) - (np.log1p(-np.exp(lp[1])) - np.log1p(-np.exp(lp[0])))
+    elif family == "tree":
+        out = est.feature_importances_.astype(np.float64)
+    else:
+        return None
+    return out.reshape(shape)
+
+
+def pixels_used(family: str, est, n_pixels: int) -> list[int] | None:
+    """Flat indices of the pixels the fitted model reads; None when it reads them all."""
+    if family == "constant":
+        return []
+    if family == "lut":
+        return [int(i) for i in est.pixels_]
+    if family == "nb":
+        return [int(i) for i in np.flatnonzero(est.named_steps["select"].get_support())]
+    if family == "logistic":
+        return [int(i) for i in np.flatnonzero(est.coef_.ravel())]
+    if family == "tree":
+        f = est.tree_.feature
+        return sorted({int(i) for i in f[f >= 0]})
+    return None

@@ -1,0 +1,233 @@
+"""pixelfit's own rules, as scikit-learn classifiers: constant, k-pixel truth table, memorize.
+
+All three take ``X`` of shape (n_patches, n_pixels) with 0/1 (or bool) values and a binary ``y``.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from sklearn.base import BaseEstimator, ClassifierMixin
+from sklearn.utils.multiclass import check_classification_targets
+from sklearn.utils.validation import check_is_fitted, validate_data
+
+from pixelfit.errors import TrainingError
+from pixelfit.models._lut_engine import (
+    TABLE_ORDER,
+    CancelFn,
+    ClassCounts,
+    ProgressFn,
+    beam_best,
+    exhaustive_best,
+    n_combinations,
+)
+
+#: Default most pixel sets scored exhaustively per k; beyond it the search is a beam.
+#: C(100, 4) = 3,921,225 fits under it, so k <= 4 is exhaustive for patches of up to 10x10.
+MAX_EXHAUSTIVE = 4_000_000
+
+
+class _BinaryRule(ClassifierMixin, BaseEstimator):
+    """Shared input checks: binary targets; the positive class is ``classes_[1]``."""
+
+    def _check_fit(self, X, y):
+        X, y = validate_data(self, X, y, dtype=None, ensure_min_samples=1)
+        check_classification_targets(y)
+        self.classes_ = np.unique(y)
+        if len(self.classes_) > 2:
+            raise ValueError(f"{type(self).__name__} is a binary classifier; got {len(self.classes_)} classes")
+        if len(self.classes_) == 1:
+            # One class seen: everything is predicted as that class.
+            yb = np.zeros(len(y), bool)
+        else:
+            yb = y == self.classes_[1]
+        return _as_bits(X), yb
+
+    def _check_predict(self, X):
+        check_is_fitted(self, "classes_")
+        X = validate_data(self, X, dtype=None, reset=False)
+        return _as_bits(X)
+
+    def _label(self, positive: np.ndarray) -> np.ndarray:
+        if len(self.classes_) == 1:
+            return np.full(len(positive), self.classes_[0])
+        return self.classes_[positive.astype(np.intp)]
+
+    def predict(self, X):
+        """Predicted class of each patch, shape (n_patches,)."""
+        return self._label(self._positive(X))
+
+    def predict_proba(self, X):
+        """Columns: [P(classes_[0]), P(classes_[1])] as estimated from training counts."""
+        s = self._score(X)
+        if len(self.classes_) == 1:
+            return np.ones((len(s), 1))
+        return np.column_stack([1.0 - s, s])
+
+    def __sklearn_tags__(self):
+        tags = super().__sklearn_tags__()
+        tags.classifier_tags.multi_class = False
+        return tags
+
+
+def _as_bits(X) -> np.ndarray:
+    X = np.asarray(X)
+    if X.dtype != bool:
+        if X.size and not np.isin(X, (0, 1)).all():
+            raise ValueError("pixel values must be 0 or 1 (binarize the patches first)")
+        X = X.astype(bool)
+    return X
+
+
+def _majority(n_pos: float, n_neg: float) -> bool:
+    """Majority label; a tie goes to the negative class."""
+    return bool(n_pos > n_neg)
+
+
+class ConstantRule(_BinaryRule):
+    """Always predicts the training majority (ties: the negative class). Size 0."""
+
+    def fit(self, X, y):
+        _, yb = self._check_fit(X, y)
+        self.n_pos_, self.n_neg_ = int(yb.sum()), int((~yb).sum())
+        self.label_ = _majority(self.n_pos_, self.n_neg_)
+        self.rate_ = self.n_pos_ / max(1, len(yb))
+        return self
+
+    def _positive(self, X):
+        X = self._check_predict(X)
+        return np.full(len(X), self.label_)
+
+    def _score(self, X):
+        X = self._check_predict(X)
+        return np.full(len(X), self.rate_)
+
+
+class LutRule(_BinaryRule):
+    """A k-pixel truth-table rule with the training-optimal pixel set.
+
+    Parameters
+    ----------
+    k : int
+        Number of pixels the rule looks at.
+    max_exhaustive : int
+        Score every k-subset when there are at most this many; otherwise grow a beam from the
+        largest size that is still exhaustive.
+    beam_width : int
+        Pixel sets kept per step of the beam search.
+
+    Attributes
+    ----------
+    pixels_ : ndarray of shape (k,), int
+        Flat pixel indices, ascending; bit j of a pattern code is pixel ``pixels_[j]``.
+    counts_ : ndarray of shape (2^k, 2), int
+        Training patches per pattern: [negatives, positives].
+    table_ : ndarray of shape (2^k,), bool
+        True where the pattern is labelled positive (the majority; ties and unseen patterns: see
+        ``fit``).
+    rate_ : ndarray of shape (2^k,), float
+        Fraction of positives per pattern (unseen patterns: the training rate); the score.
+    search_ : {'exhaustive', 'beam'}
+    n_candidates_ : int
+        Pixel sets scored at size k (for a beam: over all its steps).
+    train_errors_ : int
+    """
+
+    def __init__(self, k: int = 1, max_exhaustive: int = MAX_EXHAUSTIVE, beam_width: int = 256):
+        self.k = k
+        self.max_exhaustive = max_exhaustive
+        self.beam_width = beam_width
+
+    def fit(self, X, y, progress: ProgressFn | None = None, cancel: CancelFn | None = None):
+        """Find the pixel set with the lowest training error and its table.
+
+        Each pattern is labelled with the majority class of the training patches showing it; a
+        tie goes to the negative class, an unseen pattern gets the overall training majority.
+        """
+        X, yb = self._check_fit(X, y)
+        p = X.shape[1]
+        k = int(self.k)
+        if not 1 <= k <= p:
+            raise TrainingError(f"lut size k={k} must be between 1 and the number of pixels ({p})")
+        feasible = [j for j in range(1, k + 1) if n_combinations(p, j) <= self.max_exhaustive]
+        order = min(TABLE_ORDER, k)
+        pos = ClassCounts.build(X[yb], order)
+        neg = ClassCounts.build(X[~yb], order)
+        if feasible and feasible[-1] == k:
+            best, errs, scored = exhaustive_best(pos, neg, k, progress=progress, cancel=cancel)
+            self.search_ = "exhaustive"
+        else:
+            k0 = feasible[-1] if feasible else 1
+            start, _, scored0 = exhaustive_best(pos, neg, k0, keep=self.beam_width, cancel=cancel)
+            best, errs, scored = beam_best(pos, neg, start, k, self.beam_width, progress=progress, cancel=cancel)
+            scored += scored0
+            self.search_ = "beam"
+        self.pixels_ = best[0].astype(np.intp)
+        self.n_candidates_ = int(scored)
+        self.train_errors_ = int(errs[0])
+        codes = self._codes(X)
+        cp = np.bincount(codes[yb], minlength=2**k)
+        cn = np.bincount(codes[~yb], minlength=2**k)
+        self.counts_ = np.column_stack([cn, cp]).astype(np.int64)
+        seen = (cp + cn) > 0
+        prior = yb.mean() if len(yb) else 0.0
+        self.table_ = np.where(seen, cp > cn, _majority(cp.sum(), cn.sum()))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            self.rate_ = np.where(seen, cp / np.maximum(cp + cn, 1), prior)
+        return self
+
+    def _codes(self, X):
+        weights = (1 << np.arange(len(self.pixels_))).astype(np.intp)
+        return X[:, self.pixels_].astype(np.intp) @ weights
+
+    def _positive(self, X):
+        X = self._check_predict(X)
+        return self.table_[self._codes(X)]
+
+    def _score(self, X):
+        X = self._check_predict(X)
+        return self.rate_[self._codes(X)]
+
+
+class MemorizeRule(_BinaryRule):
+    """A truth table over the whole patch: the largest rule, the other end of the ladder.
+
+    Attributes
+    ----------
+    patterns_ : ndarray of shape (n_distinct, n_bytes), uint8
+        Distinct training patches, bit-packed row by row (``np.packbits``), sorted.
+    counts_ : ndarray of shape (n_distinct, 2), int
+        Training patches per distinct patch: [negatives, positives].
+    default_ : bool
+        Label of a patch never seen in training (the training majority; ties negative).
+    """
+
+    def fit(self, X, y):
+        X, yb = self._check_fit(X, y)
+        packed = np.packbits(X, axis=1)
+        patterns, inverse = np.unique(packed, axis=0, return_inverse=True)
+        inverse = inverse.ravel()
+        cp = np.bincount(inverse[yb], minlength=len(patterns))
+        cn = np.bincount(inverse[~yb], minlength=len(patterns))
+        self.patterns_ = patterns
+        self.counts_ = np.column_stack([cn, cp]).astype(np.int64)
+        self.default_ = _majority(cp.sum(), cn.sum())
+        self.prior_ = float(yb.mean()) if len(yb) else 0.0
+        self._index = {row.tobytes(): i for i, row in enumerate(patterns)}
+        return self
+
+    def _lookup(self, X):
+        X = self._check_predict(X)
+        if not hasattr(self, "_index"):
+            self._index = {row.tobytes(): i for i, row in enumerate(self.patterns_)}
+        packed = np.packbits(X, axis=1)
+        return np.array([self._index.get(row.tobytes(), -1) for row in packed], dtype=np.intp)
+
+    def _positive(self, X):
+        idx = self._lookup(X)
+        cn, cp = self.counts_[idx, 0], self.counts_[idx, 1]
+        return np.where(idx >= 0, cp > cn, self.default_)
+
+    def _score(self, X):
+        idx = self._lookup(X)
+        cn, cp = self.counts_[idx, 0], self.counts_[idx, 1]
+        return np.where(idx >= 0, cp / np.maximum(cp + cn, 1), self.prior_)
