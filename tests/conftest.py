@@ -1,9 +1,7 @@
 """Shared fixtures: a fixed seed and small generated patch folders in every layout."""
-import os
-
-os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")  # Qt tests run without a display
-
 from __future__ import annotations
+
+import os
 
 import csv
 from pathlib import Path
@@ -11,6 +9,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 from PIL import Image
+
+os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")  # Qt tests run without a display
 
 SEED = 20261201
 
