@@ -20,7 +20,11 @@ from __future__ import annotations
 import csv
 import io
 import os
+import stat
+import struct
+import warnings
 import zipfile
+import zlib
 from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -34,6 +38,9 @@ from pixelfit.errors import DatasetError
 MAX_SIDE = 64
 #: File name endings read as images.
 IMAGE_SUFFIXES = frozenset({".png", ".bmp", ".tif", ".tiff", ".pgm", ".pbm", ".ppm", ".jpg", ".jpeg"})
+#: Pillow decoders tried, whatever the file is called: the formats of IMAGE_SUFFIXES and no others,
+#: so a renamed file of another kind (EPS, which Pillow hands to Ghostscript, for one) is never decoded.
+READ_FORMATS = ("PNG", "BMP", "TIFF", "PPM", "JPEG")
 LABELS_CSV = "labels.csv"
 #: Refuse .npz members bigger than this many bytes once decompressed (a zip bomb guard).
 MAX_NPZ_BYTES = 4 * 1024**3
@@ -92,59 +99,98 @@ def read_patch(path: str | os.PathLike) -> np.ndarray:
 
     Colour is turned to luma by Pillow's ``L`` conversion (ITU-R 601-2 weights), alpha is dropped,
     16-bit images are scaled to 8 bits, float images in [0, 1] or [0, 255] are scaled likewise.
+    Only the formats in :data:`READ_FORMATS` are decoded.
 
     Raises
     ------
     ValueError
-        With a one-line reason when the file is not a usable patch.
+        With a one-line reason when the file is not a usable patch; nothing else escapes for any
+        file content.
     """
     path = Path(path)
     try:
-        size = path.stat().st_size
+        st = path.stat()
     except OSError as exc:
         raise ValueError(f"cannot read: {exc.strerror or exc}") from None
-    if size == 0:
+    if not stat.S_ISREG(st.st_mode):
+        # A named pipe would block the open forever; a device has no image in it.
+        raise ValueError("not a regular file")
+    if st.st_size == 0:
         raise ValueError("empty file (0 bytes)")
     try:
-        with Image.open(path) as im:
+        fh = open(path, "rb")
+    except OSError as exc:
+        raise ValueError(f"cannot read: {exc.strerror or exc}") from None
+    with fh:
+        im = _decode(fh)
+    return _to_gray8(im)
+
+
+class _Refused(Exception):
+    """A refusal of ours raised inside the decoding block, kept apart from the decoder's errors."""
+
+
+def _one_line(text: object, limit: int = 200) -> str:
+    line = " ".join(str(text).split())
+    return line if len(line) <= limit else line[: limit - 3] + "..."
+
+
+def _decode(fh) -> Image.Image:
+    """Open and decode one image with Pillow; every decoder failure becomes a ValueError."""
+    try:
+        with warnings.catch_warnings():
+            # Pillow warns (rather than refuses) between 1x and 2x its pixel limit; refuse those too.
+            warnings.simplefilter("error", Image.DecompressionBombWarning)
+            im = Image.open(fh, formats=READ_FORMATS)
             # The header is read lazily: refuse big images before decoding a single pixel,
             # which also defuses decompression bombs that declare a huge size.
             w, h = im.size
             if w > MAX_SIDE or h > MAX_SIDE:
-                raise ValueError(f"patch is {h}x{w}; pixelfit takes patches of at most {MAX_SIDE}x{MAX_SIDE}")
-            if getattr(im, "n_frames", 1) > 1:
-                im.seek(0)
+                raise _Refused(f"patch is {h}x{w}; pixelfit takes patches of at most {MAX_SIDE}x{MAX_SIDE}")
+            if w < 1 or h < 1:
+                raise _Refused(f"image is {h}x{w}: no pixels")
             im.load()
-            return _to_gray8(im)
-    except ValueError:
-        raise
+            return im
+    except _Refused as exc:
+        raise ValueError(str(exc)) from None
     except UnidentifiedImageError:
-        raise ValueError("not an image Pillow can read") from None
-    except Image.DecompressionBombError:
+        raise ValueError(f"not an image Pillow can read as {', '.join(READ_FORMATS)}") from None
+    except (Image.DecompressionBombError, Image.DecompressionBombWarning):
         raise ValueError("refused: declares an implausibly large image") from None
-    except (OSError, SyntaxError, EOFError, IndexError, KeyError, TypeError) as exc:
-        # Pillow reports truncated and corrupt data with these.
-        raise ValueError(f"corrupt or truncated image ({type(exc).__name__}: {exc})") from None
+    except Exception as exc:  # noqa: BLE001
+        # Pillow's plugins report bad data with many types (OSError, SyntaxError, struct.error,
+        # NotImplementedError, ValueError, ...); for a file's content each one means the same.
+        raise ValueError(f"corrupt or truncated image ({type(exc).__name__}: {_one_line(exc)})") from None
 
 
 def _to_gray8(im: Image.Image) -> np.ndarray:
+    try:
+        return _gray8_of(im)
+    except _Refused as exc:
+        raise ValueError(str(exc)) from None
+    except (ValueError, TypeError, OSError) as exc:
+        # Pillow cannot convert some modes (LAB, for one) to grayscale.
+        raise ValueError(f"image mode {im.mode} cannot be turned to grayscale ({_one_line(exc)})") from None
+
+
+def _gray8_of(im: Image.Image) -> np.ndarray:
     mode = im.mode
     if mode in ("I;16", "I;16B", "I;16L", "I;16N", "I"):
         arr = np.asarray(im, dtype=np.float64)
         top = 65535.0 if mode.startswith("I;16") or arr.max(initial=0) > 255 else 255.0
         if arr.min(initial=0) < 0 or arr.max(initial=0) > 65535:
-            raise ValueError(f"integer image values outside 0..65535 (mode {mode})")
+            raise _Refused(f"integer image values outside 0..65535 (mode {mode})")
         return np.rint(arr * (255.0 / top)).astype(np.uint8)
     if mode == "F":
         arr = np.asarray(im, dtype=np.float64)
         if not np.isfinite(arr).all():
-            raise ValueError("float image holds NaN or infinity")
+            raise _Refused("float image holds NaN or infinity")
         lo, hi = float(arr.min(initial=0)), float(arr.max(initial=0))
         if lo >= 0 and hi <= 1:
             return np.rint(arr * 255.0).astype(np.uint8)
         if lo >= 0 and hi <= 255:
             return np.rint(arr).astype(np.uint8)
-        raise ValueError(f"float image values {lo:g}..{hi:g} are outside [0, 1] and [0, 255]")
+        raise _Refused(f"float image values {lo:g}..{hi:g} are outside [0, 1] and [0, 255]")
     if mode in ("RGBA", "LA", "PA", "RGBa", "La"):
         im = im.convert("RGB") if mode != "LA" else im.getchannel(0)
     elif mode == "P":
@@ -158,14 +204,47 @@ def _is_hidden(rel: Path) -> bool:
     return any(part.startswith(".") for part in rel.parts)
 
 
-def _walk_files(folder: Path) -> list[Path]:
-    """All files below ``folder``, sorted; symlinked folders are not followed (no loops)."""
+def _is_text(name: str) -> bool:
+    """False for a file name that is not valid UTF-8 (os functions hand those over with surrogates)."""
+    try:
+        name.encode("utf-8")
+    except UnicodeEncodeError:
+        return False
+    return True
+
+
+def _printable(name: str) -> str:
+    """The name with undecodable bytes shown as ``\\xNN``, safe to print and to write as UTF-8."""
+    if _is_text(name):
+        return name
+    return name.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+
+
+def _walk_files(folder: Path, col: _Collector) -> tuple[list[Path], list[Path]]:
+    """Files below ``folder``, sorted, and the symbolic links to folders met on the way.
+
+    Linked folders are not followed (a link can make a loop); hidden folders are listed once as
+    skipped and not entered; a folder that cannot be listed is listed as skipped with the reason.
+    """
     found: list[Path] = []
-    for dirpath, dirnames, filenames in os.walk(folder, followlinks=False, onerror=None):
-        dirnames.sort()
-        for name in sorted(filenames):
-            found.append(Path(dirpath) / name)
-    return found
+    linked: list[Path] = []
+
+    def unreadable(err: OSError) -> None:
+        col.skip(Path(err.filename), f"folder cannot be read ({err.strerror or err})")
+
+    for dirpath, dirnames, filenames in os.walk(folder, followlinks=False, onerror=unreadable):
+        here = Path(dirpath)
+        keep = []
+        for name in sorted(dirnames):
+            if (here / name).is_symlink():
+                linked.append(here / name)
+            elif name.startswith("."):
+                col.skip(here / name, "hidden folder")
+            else:
+                keep.append(name)
+        dirnames[:] = keep
+        found.extend(here / name for name in sorted(filenames))
+    return found, linked
 
 
 class _Collector:
@@ -185,12 +264,18 @@ class _Collector:
             return path.as_posix()
 
     def skip(self, path: Path | str, reason: str) -> None:
-        self.skipped.append(Skipped(path if isinstance(path, str) else self.rel(path), reason))
+        self.skipped.append(Skipped(_printable(path if isinstance(path, str) else self.rel(path)), reason))
 
     def add_file(self, path: Path, label: str) -> None:
         rel = self.rel(path)
         if _is_hidden(Path(rel)):
             self.skip(rel, "hidden file")
+            return
+        if not _is_text(rel):
+            self.skip(rel, "name is not valid UTF-8 text; rename the file")
+            return
+        if path.is_symlink() and not path.exists():
+            self.skip(rel, "symbolic link whose target cannot be reached (missing, or a loop)")
             return
         if path.suffix.lower() not in IMAGE_SUFFIXES:
             self.skip(rel, f"not an image file type ({path.suffix or 'no extension'})")
@@ -222,21 +307,38 @@ class _Collector:
         return images, labels, names
 
 
+def _list_folder(folder: Path) -> list[Path]:
+    try:
+        return sorted(folder.iterdir(), key=lambda p: p.name)
+    except OSError as exc:
+        raise DatasetError(f"{_printable(str(folder))}: folder cannot be read ({exc.strerror or exc})") from None
+
+
 def _collect_class_folders(folder: Path, col: _Collector) -> None:
-    entries = sorted(folder.iterdir(), key=lambda p: p.name)
-    for entry in entries:
+    for entry in _list_folder(folder):
         if entry.name.startswith("."):
             col.skip(entry, "hidden")
             continue
         if entry.is_dir() and not entry.is_symlink():
+            if not _is_text(entry.name):
+                col.skip(entry, "class folder name is not valid UTF-8 text; rename the folder")
+                continue
             before = len(col.images)
             before_skipped = len(col.skipped)
-            for path in _walk_files(entry):
+            files, linked = _walk_files(entry, col)
+            for path in files:
                 col.add_file(path, entry.name)
+            for path in linked:
+                col.skip(path, "symbolic link to a folder (not followed)")
             if len(col.images) == before and len(col.skipped) == before_skipped:
                 col.skip(entry, "class folder holds no files")
+            elif len(col.images) == before:
+                col.skip(entry, f"class {_printable(entry.name)!r} dropped: none of its "
+                                f"{len(col.skipped) - before_skipped} entries is a readable patch")
         elif entry.is_dir():
             col.skip(entry, "symbolic link to a folder (not followed)")
+        elif entry.is_symlink() and not entry.exists():
+            col.skip(entry, "symbolic link whose target cannot be reached (missing, or a loop)")
         elif entry.name != LABELS_CSV:
             col.skip(entry, "file outside any class folder")
 
@@ -250,23 +352,33 @@ def _collect_labels_csv(folder: Path, col: _Collector) -> None:
     except OSError as exc:
         raise DatasetError(f"{csv_path}: cannot read ({exc.strerror or exc})") from None
     reader = csv.reader(io.StringIO(text))
-    header = next(reader, None)
+    try:
+        rows = list(reader)
+    except csv.Error as exc:
+        raise DatasetError(f"{csv_path}: not valid CSV at line {reader.line_num} ({exc})") from None
+    header = rows[0] if rows else None
     if header is None or [h.strip().lower() for h in header[:2]] != ["path", "label"]:
         raise DatasetError(f"{csv_path}: the first row must be the header 'path,label'")
     listed: dict[str, str] = {}
-    for lineno, row in enumerate(reader, start=2):
+    for lineno, row in enumerate(rows[1:], start=2):
+        where = f"{LABELS_CSV}:{lineno}"
         if not row or all(not c.strip() for c in row):
             continue
         if len(row) < 2 or not row[0].strip() or not row[1].strip():
-            col.skip(f"{LABELS_CSV}:{lineno}", "row needs both a path and a label")
+            col.skip(where, "row needs both a path and a label")
             continue
-        rel, label = row[0].strip(), row[1].strip()
+        # Backslashes: a list written on Windows names the same files.
+        rel, label = row[0].strip().replace("\\", "/"), row[1].strip()
         key = Path(rel).as_posix()
+        if Path(rel).is_absolute() or ".." in Path(rel).parts:
+            col.skip(where, f"{key}: paths in labels.csv must stay inside the folder")
+            continue
         if key in listed:
             if listed[key] == label:
-                col.skip(f"{LABELS_CSV}:{lineno}", f"duplicate row for {key}")
+                col.skip(where, f"duplicate row for {key}")
             else:
-                col.skip(f"{LABELS_CSV}:{lineno}", f"{key} listed again with another label ({label})")
+                col.skip(where, f"{key} listed again with another label ({label}); "
+                                f"the first row's label ({listed[key]}) is used")
             continue
         listed[key] = label
         path = folder / rel
@@ -274,7 +386,8 @@ def _collect_labels_csv(folder: Path, col: _Collector) -> None:
             col.skip(key, "listed in labels.csv but no such file")
             continue
         col.add_file(path, label)
-    for path in _walk_files(folder):
+    files, linked = _walk_files(folder, col)
+    for path in files:
         rel = col.rel(path)
         if rel == LABELS_CSV or rel in listed:
             continue
@@ -282,6 +395,10 @@ def _collect_labels_csv(folder: Path, col: _Collector) -> None:
             col.skip(rel, "hidden file")
         else:
             col.skip(rel, "not listed in labels.csv")
+    for path in linked:
+        rel = col.rel(path)
+        if not any(key.startswith(rel + "/") for key in listed):
+            col.skip(rel, "symbolic link to a folder (not followed)")
 
 
 def _collect_folder(folder: Path, col: _Collector) -> str:
@@ -292,25 +409,73 @@ def _collect_folder(folder: Path, col: _Collector) -> str:
     return "class-folders"
 
 
+#: What reading an .npz member can raise on bad content: zip damage, deflate damage, npy header
+#: damage, object arrays (pickles, refused by ``allow_pickle=False``), unsupported zip features.
+_NPZ_ERRORS = (OSError, ValueError, EOFError, KeyError, RuntimeError, NotImplementedError, MemoryError,
+               zipfile.BadZipFile, zlib.error, struct.error)
+
+
+def _check_npz_members(path: Path, zf: zipfile.ZipFile) -> None:
+    """Refuse sizes before numpy allocates them: the zip's and each .npy header's own."""
+    infos = zf.infolist()
+    total = sum(i.file_size for i in infos)
+    if total > MAX_NPZ_BYTES:
+        raise DatasetError(f"{path}: arrays would take {total / 1e9:.1f} GB; the limit is {MAX_NPZ_BYTES / 1e9:.0f} GB")
+    for info in infos:
+        if info.filename not in ("images.npy", "labels.npy", "names.npy"):
+            continue
+        with zf.open(info) as fh:
+            version = np.lib.format.read_magic(fh)
+            if version == (1, 0):
+                shape, _, dtype = np.lib.format.read_array_header_1_0(fh)
+            else:
+                shape, _, dtype = np.lib.format.read_array_header_2_0(fh)
+        # numpy allocates the declared shape before reading the data, so a header that declares
+        # more than the member holds is refused here.
+        declared = int(np.prod(shape, dtype=object)) * dtype.itemsize
+        if declared > info.file_size:
+            raise DatasetError(f"{path}: '{info.filename[:-4]}' declares {declared} bytes of data but holds "
+                               f"{info.file_size}; the file is damaged or truncated")
+
+
+def _text_values(path: Path, what: str, arr: np.ndarray) -> list[str]:
+    """Class names or patch names as str; bytes must be UTF-8 and every value printable text."""
+    if arr.dtype.kind == "S":
+        try:
+            values = [v.decode("utf-8") for v in arr.tolist()]
+        except UnicodeDecodeError:
+            raise DatasetError(f"{path}: '{what}' holds bytes that are not UTF-8 text") from None
+    else:
+        values = [str(v) for v in arr.tolist()]
+    if not all(_is_text(v) for v in values):
+        raise DatasetError(f"{path}: '{what}' holds text that cannot be written as UTF-8 (lone surrogates)")
+    return values
+
+
 def load_npz(path: Path) -> Dataset:
-    """Load an ``.npz`` file; see the module docstring for the arrays it must hold."""
+    """Load an ``.npz`` file; see the module docstring for the arrays it must hold.
+
+    Raises
+    ------
+    DatasetError
+        For anything that is not such a file; object arrays are refused (never unpickled).
+    """
     try:
         with zipfile.ZipFile(path) as zf:
-            total = sum(i.file_size for i in zf.infolist())
-        if total > MAX_NPZ_BYTES:
-            raise DatasetError(f"{path}: arrays would take {total / 1e9:.1f} GB; the limit is {MAX_NPZ_BYTES / 1e9:.0f} GB")
+            _check_npz_members(path, zf)
         with np.load(path, allow_pickle=False) as npz:
             members = set(npz.files)
             missing = {"images", "labels"} - members
             if missing:
-                raise DatasetError(f"{path}: missing array(s) {', '.join(sorted(missing))}; found {', '.join(sorted(members)) or 'none'}")
+                raise DatasetError(f"{path}: missing array(s) {', '.join(sorted(missing))}; found "
+                                   f"{_one_line(', '.join(sorted(members))) or 'none'}")
             images = npz["images"]
             labels = npz["labels"]
             names = npz["names"] if "names" in members else None
     except DatasetError:
         raise
-    except (OSError, ValueError, zipfile.BadZipFile, EOFError, KeyError, RuntimeError) as exc:
-        raise DatasetError(f"{path}: not a readable .npz file ({type(exc).__name__}: {exc})") from None
+    except _NPZ_ERRORS as exc:
+        raise DatasetError(f"{path}: not a readable .npz file ({type(exc).__name__}: {_one_line(exc)})") from None
     if images.ndim != 3:
         raise DatasetError(f"{path}: 'images' must have 3 dimensions (n, height, width), it has {images.ndim}")
     if images.dtype != np.uint8:
@@ -324,19 +489,26 @@ def load_npz(path: Path) -> Dataset:
     n, h, w = images.shape
     if h > MAX_SIDE or w > MAX_SIDE:
         raise DatasetError(f"{path}: patches are {h}x{w}; pixelfit takes patches of at most {MAX_SIDE}x{MAX_SIDE}")
+    if h < 1 or w < 1:
+        raise DatasetError(f"{path}: patches are {h}x{w}: no pixels")
     if labels.ndim != 1 or labels.shape[0] != n:
         raise DatasetError(f"{path}: 'labels' must have shape ({n},) to match 'images'; it has {labels.shape}")
     if labels.dtype.kind not in "USiub":
         raise DatasetError(f"{path}: 'labels' must be strings or integers; it is {labels.dtype}")
+    label_list = _text_values(path, "labels", labels)
+    if any(not v.strip() for v in label_list):
+        raise DatasetError(f"{path}: 'labels' holds an empty class name")
     if names is not None:
         if names.ndim != 1 or names.shape[0] != n:
             raise DatasetError(f"{path}: 'names' must have shape ({n},) to match 'images'; it has {names.shape}")
-        name_list = [str(s) for s in names.tolist()]
+        if names.dtype.kind not in "USiu":
+            raise DatasetError(f"{path}: 'names' must be strings or integers; it is {names.dtype}")
+        name_list = _text_values(path, "names", names)
     else:
         name_list = [f"#{i}" for i in range(n)]
     return Dataset(
         images=np.ascontiguousarray(images),
-        labels=np.array([str(v) for v in labels.tolist()], dtype=str),
+        labels=np.array(label_list, dtype=str),
         names=name_list,
         source=str(path),
         layout="npz",
@@ -404,14 +576,17 @@ def load_dataset(path: str | os.PathLike) -> Dataset:
 
 
 def _check_usable(ds: Dataset) -> None:
+    n_skip = len(ds.skipped)
+    # A dropped class says most about a missing class; otherwise the first entry will do.
+    first = next((s for s in ds.skipped if " dropped: " in s.reason), ds.skipped[0]) if n_skip else None
+    detail = f"; {n_skip} file(s) skipped, first: {first.path}: {first.reason}" if first else ""
     if len(ds) == 0:
-        n_skip = len(ds.skipped)
-        detail = f"; {n_skip} file(s) skipped, first: {ds.skipped[0].path}: {ds.skipped[0].reason}" if n_skip else ""
         raise DatasetError(f"{ds.source}: no readable patches found{detail}")
     classes = ds.counts
     if len(classes) < 2:
         only = next(iter(classes))
-        raise DatasetError(f"{ds.source}: only one class ({only!r}, {classes[only]} patches); a detector needs at least two")
+        raise DatasetError(f"{ds.source}: only one class ({only!r}, {classes[only]} patches); a detector needs "
+                           f"at least two{detail}")
     if ds.subset is not None:
         for part in ("train", "test"):
             if not np.any(ds.subset == part):
