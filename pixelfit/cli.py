@@ -233,7 +233,8 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return int(args.func(args))
     except PixelfitError as exc:
-        print(f"pixelfit: {exc}", file=sys.stderr)
+        # One line, whatever a message quoted from a file or a library held.
+        print(f"pixelfit: {' '.join(str(exc).splitlines())}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except BrokenPipeError:
         return EXIT_OK

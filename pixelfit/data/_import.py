@@ -22,6 +22,7 @@ import io
 import os
 import stat
 import struct
+import unicodedata
 import warnings
 import zipfile
 import zlib
@@ -185,7 +186,7 @@ def _gray8_of(im: Image.Image) -> np.ndarray:
         arr = np.asarray(im, dtype=np.float64)
         if not np.isfinite(arr).all():
             raise _Refused("float image holds NaN or infinity")
-        lo, hi = float(arr.min(initial=0)), float(arr.max(initial=0))
+        lo, hi = float(arr.min()), float(arr.max())
         if lo >= 0 and hi <= 1:
             return np.rint(arr * 255.0).astype(np.uint8)
         if lo >= 0 and hi <= 255:
@@ -211,6 +212,11 @@ def _is_text(name: str) -> bool:
     except UnicodeEncodeError:
         return False
     return True
+
+
+def _has_control(text: str) -> bool:
+    """True when the text holds a control character (a NUL, a line break...), unfit for a class name."""
+    return any(unicodedata.category(ch) == "Cc" for ch in text)
 
 
 def _printable(name: str) -> str:
@@ -381,6 +387,9 @@ def _collect_labels_csv(folder: Path, col: _Collector) -> None:
                                 f"the first row's label ({listed[key]}) is used")
             continue
         listed[key] = label
+        if _has_control(label):
+            col.skip(where, "label holds control characters")
+            continue
         path = folder / rel
         if not path.is_file():
             col.skip(key, "listed in labels.csv but no such file")
@@ -498,6 +507,8 @@ def load_npz(path: Path) -> Dataset:
     label_list = _text_values(path, "labels", labels)
     if any(not v.strip() for v in label_list):
         raise DatasetError(f"{path}: 'labels' holds an empty class name")
+    if any(_has_control(v) for v in label_list):
+        raise DatasetError(f"{path}: 'labels' holds a class name with control characters")
     if names is not None:
         if names.ndim != 1 or names.shape[0] != n:
             raise DatasetError(f"{path}: 'names' must have shape ({n},) to match 'images'; it has {names.shape}")
