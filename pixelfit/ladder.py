@@ -90,7 +90,7 @@ def prepare(dataset: Dataset, binarizer: Binarizer, positive: str | None = None,
         test_mask = dataset.subset == "test"
         presplit = True
     else:
-        test_mask = stratified_split(y, test_fraction, seed)
+        test_mask = stratified_split(y, test_fraction, seed, {True: pos, False: neg})
         presplit = False
     train_mask = ~test_mask
     if not y[train_mask].any() or y[train_mask].all():
@@ -179,6 +179,18 @@ def effective_folds(y: np.ndarray, folds: int) -> tuple[int, str | None]:
     if smallest >= 2:
         return smallest, f"cross-validation uses {smallest} folds, not {folds}: the smaller class has only {smallest} training patches"
     return 0, f"cross-validation is off: the smaller class has only {smallest} training patch"
+
+
+def identical_note(X: np.ndarray) -> str | None:
+    """A note when every training patch is the same after binarization, else None.
+
+    Then every rule gives all training patches one answer, and none can do better there than the
+    constant: the ladder still runs, so that the numbers show it.
+    """
+    if len(X) and bool((X == X[0]).all()):
+        return ("all training patches are the same after binarization: no rule can tell the classes apart, "
+                "so none does better than the constant on them")
+    return None
 
 
 def _fit(est, X, y, cancel: CancelFn | None, notes: list[str] | None = None):
@@ -290,11 +302,12 @@ def run_ladder(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, see
     Raises :class:`LadderCancelled` between steps when ``cancel()`` returns True. Call
     :func:`conclude` on the finished rungs to mark the recommended one and the comparisons.
     """
-    folds, note = effective_folds(prep.y_train, folds)
+    folds, fold_note = effective_folds(prep.y_train, folds)
+    notes = [n for n in (fold_note, identical_note(prep.X_train)) if n]
     per_rung = folds + 1
     total = per_rung * len(rungs)
     done = 0
-    if note:
+    for note in notes:
         yield Progress(done, total, note)
     for family, size in rungs:
         steps = _rung_steps(prep, family, size, folds, seed, cancel, target_precision, target_recall)
@@ -307,8 +320,7 @@ def run_ladder(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, see
             done += 1
             if done % per_rung:  # the last step of a rung is reported with the rung itself
                 yield Progress(done, total, message)
-        if note:
-            rung.notes.append(note)
+        rung.notes.extend(notes)
         yield Progress(done, total, f"{rung.key} done", rung)
 
 

@@ -10,18 +10,21 @@ from sklearn.model_selection import train_test_split
 from pixelfit.errors import TrainingError
 
 
-def stratified_split(y: np.ndarray, test_fraction: float = 0.25, seed: int = 0) -> np.ndarray:
+def stratified_split(y: np.ndarray, test_fraction: float = 0.25, seed: int = 0,
+                     class_names: dict | None = None) -> np.ndarray:
     """Boolean mask of shape (n_patches,), True for held-out patches, stratified on ``y``.
 
-    The same ``y``, fraction and seed always give the same split.
+    The same ``y``, fraction and seed always give the same split. ``class_names`` maps values of
+    ``y`` to the names used in messages (for a boolean target, the class each value stands for).
     """
     if not 0 < test_fraction < 1:
         raise TrainingError(f"--test-fraction must be between 0 and 1, not {test_fraction}")
     y = np.asarray(y)
     classes, counts = np.unique(y, return_counts=True)
     if counts.min() < 2:
+        small = classes[np.argmin(counts)]
         raise TrainingError(
-            f"class {classes[np.argmin(counts)]!r} has {counts.min()} patch(es); a stratified split needs at least 2 per class"
+            f"class {(class_names or {}).get(small, small)!r} has {counts.min()} patch(es); a stratified split needs at least 2 per class"
         )
     idx = np.arange(len(y))
     try:
