@@ -1,7 +1,7 @@
 """The ``pixelfit`` command line: the same core calls as the desktop application.
 
-Exit codes: 0 success; 1 the job ran but could not finish (e.g. cancelled); 2 bad input or
-usage, with one line on stderr saying why.
+Exit codes: 0 success; 1 the job ran but could not finish (cancelled, or an output could not be
+written); 2 bad input or usage. Both 1 and 2 come with one line on stderr saying why.
 """
 
 from __future__ import annotations
@@ -139,6 +139,10 @@ def cmd_fit(args) -> int:
     rungs_plan = plan_rungs(families, prep.n_pixels, args.max_size, parse_size_overrides(args.sizes))
     if not rungs_plan:
         raise PixelfitError("no rung to train: --max-size and --sizes leave every family empty")
+    try:  # before training, so an unusable --out is said at once rather than after the ladder
+        Path(args.out).mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise PixelfitError(f"--out {args.out}: cannot create the folder ({exc.strerror or exc})") from None
     settings = {"families": families, "max_size": args.max_size, "sizes": args.sizes, "folds": args.folds,
                 "seed": args.seed, "target_precision": args.target_precision, "target_recall": args.target_recall}
     h, w = prep.shape
@@ -238,3 +242,7 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_BAD_INPUT
     except BrokenPipeError:
         return EXIT_OK
+    except OSError as exc:  # a write that failed (disk full, folder gone): what was written before stays
+        where = f"{exc.filename}: " if exc.filename else ""
+        print(f"pixelfit: could not finish: {where}{' '.join(str(exc.strerror or exc).splitlines())}", file=sys.stderr)
+        return EXIT_INCOMPLETE
