@@ -16,6 +16,7 @@ import numpy as np
 from sklearn.base import clone
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.model_selection import StratifiedKFold
+from threadpoolctl import threadpool_limits
 
 from pixelfit.data import Binarizer, Dataset, binary_target, choose_positive, fingerprint, stratified_split
 from pixelfit.errors import TrainingError
@@ -293,6 +294,13 @@ def run_ladder(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, see
     Raises :class:`LadderCancelled` between steps when ``cancel()`` returns True. Call
     :func:`conclude` on the finished rungs to mark the recommended one and the comparisons.
     """
+    # Ladder matrices are small: threads in BLAS only add overhead (and stall badly on a busy
+    # machine), so numeric libraries run single-threaded while the ladder trains.
+    with threadpool_limits(limits=1):
+        yield from _run(prep, rungs, folds, seed, cancel, target_precision, target_recall)
+
+
+def _run(prep, rungs, folds, seed, cancel, target_precision, target_recall) -> Iterator[Progress]:
     folds, note = effective_folds(prep.y_train, folds)
     per_rung = folds + 1
     total = per_rung * len(rungs)

@@ -7,11 +7,12 @@ its own importance map is) lives here too, so the ladder treats all families ali
 
 from __future__ import annotations
 
+import hashlib
 import math
 import warnings
+from collections import OrderedDict
 from collections.abc import Callable
 from dataclasses import dataclass
-from functools import partial
 
 import numpy as np
 from sklearn.base import BaseEstimator, ClassifierMixin
@@ -40,6 +41,9 @@ from pixelfit.models._rules import ConstantRule, LutRule, MemorizeRule
 FAMILY_ORDER = ("constant", "lut", "nb", "logistic", "tree", "mlp", "memorize")
 
 
+_L1_CACHE: OrderedDict[tuple[bytes, float], np.ndarray] = OrderedDict()
+
+
 class SparseLogistic(ClassifierMixin, BaseEstimator):
     """Logistic regression on k pixels chosen by an L1 penalty tuned to leave k non-zero weights.
 
@@ -66,22 +70,32 @@ class SparseLogistic(ClassifierMixin, BaseEstimator):
         self.max_steps = max_steps
 
     @staticmethod
-    def _l1(X, y, C):
+    def _l1(X, y, C, data_key: bytes):
+        # Rungs of several sizes bisect over the same C values on the same folds: reuse the fits.
+        key = (data_key, C)
+        hit = _L1_CACHE.get(key)
+        if hit is not None:
+            return hit
         # A large intercept_scaling keeps liblinear from penalising the intercept.
         m = LogisticRegression(l1_ratio=1.0, solver="liblinear", C=C, max_iter=1000, random_state=0,
                                intercept_scaling=100.0)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", ConvergenceWarning)
             m.fit(X, y)
-        return np.flatnonzero(m.coef_.ravel())
+        support = np.flatnonzero(m.coef_.ravel())
+        _L1_CACHE[key] = support
+        while len(_L1_CACHE) > 4096:
+            _L1_CACHE.popitem(last=False)
+        return support
 
     def _support(self, X, y, k: int) -> tuple[np.ndarray, float]:
         lo = l1_min_c(X, y, loss="log") if X.any() else 1.0
         log_lo, log_hi = math.log(lo), math.log(lo * 1e6)
         best: tuple[np.ndarray, float] | None = None
+        data_key = _digest(X, y)
         for _ in range(self.max_steps):
             mid = (log_lo + log_hi) / 2
-            sup = self._l1(X, y, math.exp(mid))
+            sup = self._l1(X, y, math.exp(mid), data_key)
             if len(sup) <= k and (best is None or len(sup) > len(best[0])):
                 best = (sup, math.exp(mid))
             if len(sup) == k:
@@ -165,9 +179,36 @@ class Family:
     fixed_size: bool = False
 
 
+def _digest(*arrays) -> bytes:
+    h = hashlib.blake2b(digest_size=16)
+    for a in arrays:
+        a = np.ascontiguousarray(a)
+        h.update(repr((a.shape, a.dtype.str)).encode())
+        h.update(a.tobytes())
+    return h.digest()
+
+
+_MI_CACHE: OrderedDict[bytes, np.ndarray] = OrderedDict()
+
+
+def pixel_mutual_information(X, y) -> np.ndarray:
+    """Mutual information of each binary pixel with the label (scikit-learn's discrete estimate).
+
+    Every nb rung of a ladder ranks pixels on the same training folds; the scores are computed
+    once per distinct (X, y) and reused.
+    """
+    key = _digest(X, y)
+    hit = _MI_CACHE.get(key)
+    if hit is None:
+        hit = mutual_info_classif(np.asarray(X, dtype=np.int8), y, discrete_features=True, random_state=0)
+        _MI_CACHE[key] = hit
+        while len(_MI_CACHE) > 32:
+            _MI_CACHE.popitem(last=False)
+    return hit.copy()
+
+
 def _make_nb(k, p, seed):
-    mi = partial(mutual_info_classif, discrete_features=True, random_state=seed)
-    return Pipeline([("select", SelectKBest(mi, k=min(k, p))), ("nb", BernoulliNB(alpha=1.0))])
+    return Pipeline([("select", SelectKBest(pixel_mutual_information, k=min(k, p))), ("nb", BernoulliNB(alpha=1.0))])
 
 
 FAMILIES: dict[str, Family] = {
