@@ -16,6 +16,7 @@ import numpy as np
 from sklearn.base import clone
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.model_selection import StratifiedKFold
+from threadpoolctl import threadpool_limits
 
 from pixelfit.data import Binarizer, Dataset, binary_target, choose_positive, fingerprint, stratified_split
 from pixelfit.errors import TrainingError
@@ -241,21 +242,24 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     cv = None
     oof = np.full(len(y), np.nan) if fam.scored else None
     if folds:
-        f1s = []
+        f1s, errs = [], []
         splitter = StratifiedKFold(n_splits=folds, shuffle=True, random_state=seed)
         for i, (tr, va) in enumerate(splitter.split(X, y)):
             if cancel is not None and cancel():
                 raise LadderCancelled
             est = _fit(clone(template), X[tr], y[tr], cancel, notes)
             pred = est.predict(X[va])
-            f1s.append(detection_metrics(y[va], pred)["f1"] or 0.0)
+            fold = detection_metrics(y[va], pred)
+            f1s.append(fold["f1"] or 0.0)
+            errs.append(1.0 - fold["accuracy"])
             if oof is not None:
                 s = _score(est, X[va])
                 if s is not None:
                     oof[va] = s
             yield f"{family}-{size}: fold {i + 1} of {folds}"
-        cv = {"folds": folds, "f1_mean": float(np.mean(f1s)), "f1_std": float(np.std(f1s, ddof=1)) if folds > 1 else 0.0,
-              "f1_folds": [float(v) for v in f1s]}
+        cv = {"folds": folds, "f1_mean": float(np.mean(f1s)), "f1_std": float(np.std(f1s, ddof=1)),
+              "f1_folds": [float(v) for v in f1s], "error_mean": float(np.mean(errs)),
+              "error_std": float(np.std(errs, ddof=1))}
     if cancel is not None and cancel():
         raise LadderCancelled
     est = _fit(clone(template), X, y, cancel, notes)
@@ -302,6 +306,13 @@ def run_ladder(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, see
     Raises :class:`LadderCancelled` between steps when ``cancel()`` returns True. Call
     :func:`conclude` on the finished rungs to mark the recommended one and the comparisons.
     """
+    # Ladder matrices are small: threads in BLAS only add overhead (and stall badly on a busy
+    # machine), so numeric libraries run single-threaded while the ladder trains.
+    with threadpool_limits(limits=1):
+        yield from _run(prep, rungs, folds, seed, cancel, target_precision, target_recall)
+
+
+def _run(prep, rungs, folds, seed, cancel, target_precision, target_recall) -> Iterator[Progress]:
     folds, fold_note = effective_folds(prep.y_train, folds)
     notes = [n for n in (fold_note, identical_note(prep.X_train)) if n]
     per_rung = folds + 1
