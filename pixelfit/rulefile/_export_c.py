@@ -34,6 +34,13 @@ def _rows(values, per_line: int = 12, fmt=str) -> str:
     return "    " + ",\n    ".join(lines) if lines else "    0"
 
 
+def _stat(value) -> str:
+    """A number from the file's evaluation as text; anything else (text, lists) as 'unknown'."""
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        return str(value)
+    return "None" if value is None else "unknown"
+
+
 def _comment(text: str) -> str:
     return text.replace("*/", "* /")
 
@@ -137,7 +144,9 @@ def header_text(rule: Rule, ident: str) -> str:
     tables, code, needs_math = _body(rule, ident, P)
     b = rule.binarizer
     doc = rule.doc
-    test = (doc.get("evaluation") or {}).get("test") or {}
+    # evaluation is free-form in the schema: take only numbers from it, never text into the C file.
+    test = (doc.get("evaluation") or {}).get("test")
+    test = test if isinstance(test, dict) else {}
     lines = [
         f"/* {ident}.h: pixelfit rule {rule.family}-{rule.size}, exported as C99.",
         f" * Detects {_comment(rule.positive)!s} (returns 1) against {_comment(rule.negative)!s} (returns 0).",
@@ -145,7 +154,8 @@ def header_text(rule: Rule, ident: str) -> str:
         f" * binarized as the rule was trained: {_comment(b.describe())} (fixed: pixel >= T is 1; otsu and",
         " * per-patch methods: pixel > threshold is 1; invert flips the bits).",
         f" * Training data fingerprint (SHA-256): {doc['training_data']['fingerprint']}",
-        f" * Held-out precision {test.get('precision')}, recall {test.get('recall')} on {test.get('n')} patches.",
+        f" * Held-out precision {_stat(test.get('precision'))}, recall {_stat(test.get('recall'))} on "
+        f"{_stat(test.get('n'))} patches.",
         f" * Caution: {_comment(CAUTION)}",
         " */",
         f"#ifndef {P}_H",
