@@ -142,8 +142,8 @@ def _decode(fh) -> Image.Image:
         with warnings.catch_warnings():
             # Pillow warns (rather than refuses) between 1x and 2x its pixel limit; refuse those too.
             warnings.simplefilter("error", Image.DecompressionBombWarning)
-            # Decoder chatter about damaged metadata (EXIF, TIFF tags) would reach the user as
-            # tracebacks-like lines; the file is either read or refused with a reason anyway.
+            # Decoder chatter about damaged metadata (EXIF, TIFF tags) would reach the user as stray
+            # warning lines; the file is either read or refused with its reason anyway.
             warnings.simplefilter("ignore", UserWarning)
             im = Image.open(fh, formats=READ_FORMATS)
             # The header is read lazily: refuse big images before decoding a single pixel,
