@@ -174,6 +174,48 @@ def test_folder_that_fails_to_list_refused_simulated(tmp_path, capsys, monkeypat
     assert_refused(root, "folder cannot be read (Permission denied)", capsys)
 
 
+def test_unreadable_file_skipped_simulated(base, monkeypatch):
+    import pixelfit.data._import as import_mod
+
+    target = base / "spot" / "g3.png"
+    real_open = open
+
+    def guarded_open(file, *args, **kwargs):
+        if Path(file) == target:
+            raise PermissionError(13, "Permission denied", str(file))
+        return real_open(file, *args, **kwargs)
+
+    monkeypatch.setattr(import_mod, "open", guarded_open, raising=False)
+    assert_skipped(base, "spot/g3.png", "cannot read: Permission denied", good=2 * N_GOOD - 1)
+
+
+@pytest.mark.skipif(hasattr(os, "geteuid") and os.geteuid() == 0,
+                    reason="running as root: permission bits do not stop root from reading; "
+                           "test_unreadable_file_skipped_simulated covers it")
+def test_unreadable_file_skipped_real_permissions(base):
+    target = base / "spot" / "g3.png"
+    target.chmod(0)
+    try:
+        assert_skipped(base, "spot/g3.png", "cannot read: Permission denied", good=2 * N_GOOD - 1)
+    finally:
+        target.chmod(0o644)
+
+
+def test_unreadable_subfolder_skipped_simulated(base, monkeypatch):
+    sub = base / "spot" / "batch2"
+    sub.mkdir()
+    Image.fromarray(_patch(170)).save(sub / "x.png")
+    real_scandir = os.scandir
+
+    def scandir(p="."):
+        if Path(p) == sub:
+            raise PermissionError(13, "Permission denied", str(p))
+        return real_scandir(p)
+
+    monkeypatch.setattr(os, "scandir", scandir)
+    assert_skipped(base, "spot/batch2", "folder cannot be read (Permission denied)")
+
+
 # ---- per-file skips ---------------------------------------------------------------------------
 
 
