@@ -21,28 +21,35 @@ class _Probe(QtCore.QObject):
     ping = QtCore.Signal()
 
 
-def emit_drops_true_reference(n: int = 64) -> bool:
-    """True when ``Signal.emit()`` loses a reference to ``True`` on every call.
+def binding_drops_references(n: int = 64) -> bool:
+    """True when the Qt binding loses references to ``None`` or ``True`` on ordinary calls.
 
-    Seen with PySide6 6.12.0 on CPython 3.11 (measured in this project: 200 emits, 200 references
-    lost). On CPython >= 3.12 ``True`` is immortal and the loss is harmless; before that the count
-    reaches zero after some thousands of emits and the interpreter aborts in ``bool_dealloc``.
+    Measured in this project with PySide6 6.12.0 on CPython 3.11: every call that returns None
+    (``QObject.parent()`` of a parentless object, any void method) loses one reference to None, and
+    every ``Signal.emit()`` one to True (200 calls, 200 references). From CPython 3.12 these
+    objects are immortal and the loss is harmless; before that a count reaches zero after some
+    thousands of calls and the interpreter aborts in ``none_dealloc`` or ``bool_dealloc``.
     """
     probe = _Probe()
-    before = sys.getrefcount(True)
+    none_before, true_before = sys.getrefcount(None), sys.getrefcount(True)
     for _ in range(n):
+        probe.parent()
         probe.ping.emit()
-    return before - sys.getrefcount(True) >= n
+    return none_before - sys.getrefcount(None) >= n or true_before - sys.getrefcount(True) >= n
 
 
-def _make_bools_immortal() -> None:
-    """Raise the reference counts of True and False far out of reach, as CPython 3.12 does."""
-    for obj in (True, False):
+def _make_singletons_immortal() -> None:
+    """Raise the reference counts of None, True and False out of reach, as CPython 3.12 does.
+
+    ``ob_refcnt`` is the first field of every object in a standard CPython build.
+    """
+    for obj in (None, True, False):
         ctypes.c_ssize_t.from_address(id(obj)).value += 1 << 48
 
 
-# Guard against the binding bug above where it bites; a no-op elsewhere.
-if sys.implementation.name == "cpython" and sys.version_info < (3, 12) and emit_drops_true_reference():
-    _make_bools_immortal()
+# Guard against the binding bug above where it bites; a no-op elsewhere. pyproject.toml also keeps
+# that release off Python 3.11 for fresh installs; this covers environments that already have it.
+if sys.implementation.name == "cpython" and sys.version_info < (3, 12) and binding_drops_references():
+    _make_singletons_immortal()
 
-__all__ = ["QtCore", "QtGui", "QtWidgets", "pg", "emit_drops_true_reference"]
+__all__ = ["QtCore", "QtGui", "QtWidgets", "pg", "binding_drops_references"]

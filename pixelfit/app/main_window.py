@@ -104,6 +104,7 @@ class MainWindow(QtWidgets.QMainWindow):
         split.addWidget(inspector_box)
         split.setStretchFactor(1, 3)
         split.setStretchFactor(2, 2)
+        split.setSizes([340, 760, 580])
         self.strip = MessageStrip()
         central = QtWidgets.QWidget()
         lay = QtWidgets.QVBoxLayout(central)
@@ -118,7 +119,7 @@ class MainWindow(QtWidgets.QMainWindow):
                              s.subscribe("prep", self._update_actions),
                              s.subscribe("dataset", self._dataset_opened)]
         self._update_actions()
-        self.resize(1600, 960)
+        self.resize(1680, 1000)
 
     # ---- actions ------------------------------------------------------------------------------
 

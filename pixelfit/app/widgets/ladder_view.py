@@ -174,9 +174,7 @@ class ErrorPlot(Listens, pg.PlotWidget):
         pi.setLabel("bottom", "size (log2 spacing)")
         pi.showGrid(x=True, y=True, alpha=0.25)
         pi.setYRange(0, 1, padding=0.02)
-        pi.setTitle("  ".join(f"{'—' if k == 'cv' else {'train': '- -', 'test': '···', 'bound': '-·-'}[k]} {KIND_LABEL[k]}"
-                              for k in KIND_STYLE), size="9pt")
-        self.legend = pi.addLegend(offset=(-10, 10), labelTextSize="8pt")
+        self.legend = pi.addLegend(offset=(-10, 10), labelTextSize="8pt", colCount=2)
         self.points = pg.ScatterPlotItem(size=9, hoverable=True, tip=None)
         self.points.sigClicked.connect(self._clicked)
         self.marker = pg.ScatterPlotItem(size=18, symbol="o", pen=pg.mkPen((0, 0, 0), width=2), brush=None)
@@ -197,6 +195,8 @@ class ErrorPlot(Listens, pg.PlotWidget):
             pi.removeItem(c)
         self._curves = []
         self.legend.clear()
+        for kind, style in KIND_STYLE.items():  # line style keys, in black, before the family colours
+            self.legend.addItem(pg.PlotDataItem(pen=pg.mkPen((0, 0, 0), width=1.5, style=style)), KIND_LABEL[kind])
         curves = self.session.error_curves()
         spots = []
         sizes = set()
@@ -236,8 +236,3 @@ class ErrorPlot(Listens, pg.PlotWidget):
         y = 1 - r.cv["f1_mean"] if r.cv else 1 - r.test["accuracy"]
         self.marker.setData([{"pos": (size_position(r.size), min(1.0, y))}])
 
-
-def point_positions(plot: ErrorPlot) -> np.ndarray:
-    """(x, y) of the clickable points, shape (n_rungs, 2); for tests and the benchmark."""
-    x, y = plot.points.getData()
-    return np.column_stack([x, y])
