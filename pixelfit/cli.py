@@ -178,14 +178,162 @@ def cmd_fit(args) -> int:
 
 
 def _write_rules(out, prep, rungs) -> None:
-    """Rule files, when the rule-file module is present."""
-    try:
-        from pixelfit.rulefile import save_rung
-    except ImportError:
-        return
+    from pixelfit.rulefile import save_rung
+
     for r in rungs:
         r.rule_file = f"rules/{r.key}.json"
         save_rung(Path(out) / r.rule_file, prep, r)
+
+
+def pixel_grid(shape: tuple[int, int], used: list[int] | None, signs: dict[int, str] | None = None) -> str:
+    """The patch as ASCII: '#' (or the sign) for a pixel the rule reads, '.' for one it ignores."""
+    h, w = shape
+    rows = []
+    for r in range(h):
+        cells = []
+        for c in range(w):
+            i = r * w + c
+            if used is None:
+                cells.append("#")
+            elif i in used:
+                cells.append((signs or {}).get(i, "#"))
+            else:
+                cells.append(".")
+        rows.append("  " + " ".join(cells))
+    return "\n".join(rows)
+
+
+def _metrics_line(name: str, m: dict | None) -> str:
+    if not m:
+        return f"  {name:<9} -"
+    return (f"  {name:<9} precision {_fmt(m['precision'])}{_ci(m['precision_ci'])}  recall {_fmt(m['recall'])}"
+            f"{_ci(m['recall_ci'])}  F1 {_fmt(m['f1'])}  MCC {_fmt(m['mcc'])}  (n={m.get('n')}, tp {m['tp']}, "
+            f"fp {m['fp']}, fn {m['fn']}, tn {m['tn']})")
+
+
+def cmd_show(args) -> int:
+    import numpy as np
+
+    from pixelfit.rulefile import load_rule
+
+    rule = load_rule(args.rule)
+    d = rule.doc
+    ev = d.get("evaluation") or {}
+    h, w = rule.shape
+    print(f"{args.rule}: {rule.family}-{rule.size} rule over {h}x{w} patches "
+          f"(pixelfit {d['pixelfit_version']}, schema {d['schema_version']}, created {d['created']})")
+    print(f"detects {rule.positive!r} against {rule.negative!r}; binarize {rule.binarizer.describe()}")
+    used = rule.pixels_used()
+    signs = None
+    if rule.family == "logistic":
+        coef = np.asarray(d["model"]["weights"]).ravel()
+        signs = {i: "+" if coef[i] > 0 else "-" for i in used or []}
+    n_used = "all" if used is None else str(len(used))
+    print(f"pixels read: {n_used} of {h * w}" + ("  ('+'/'-': sign of the weight)" if signs else ""))
+    print(pixel_grid(rule.shape, used, signs))
+    if rule.family == "lut":
+        px = d["model"]["pixels"]
+        print("truth table (pixels " + ", ".join(f"({r},{c})" for r, c in px) + "; bit j = j-th pixel):")
+        ones = [i for i, v in enumerate(d["model"]["table"]) if v]
+        print(f"  positive for pattern codes: {', '.join(map(str, ones)) or 'none'}")
+    print("metrics:")
+    print(_metrics_line("train", ev.get("train")))
+    cv = ev.get("cv")
+    print(f"  {'CV':<9} " + ("-" if not cv else f"F1 {cv['f1_mean']:.3f} ± {cv['f1_std']:.3f} over {cv['folds']} folds"))
+    print(_metrics_line("held-out", ev.get("test")))
+    log2h = ev.get("log2_class_size")
+    size = [f"parameters {ev.get('parameters')}"]
+    if log2h is not None:
+        size.append(f"log2 class size {log2h:.4g}")
+    if ev.get("vc_dim") is not None:
+        size.append(f"VC dimension {ev['vc_dim']}")
+    print("size: " + ", ".join(size))
+    b = ev.get("bound")
+    print("bound: " + ("no bound applies to this family" if not b else
+                       f"true error <= {b['error_upper']:.3f} with probability {1 - b['delta']:.2f} ({b['method']})"))
+    td = d["training_data"]
+    print(f"training data fingerprint: {td['fingerprint']}")
+    print(f"caution: {d['caution']}")
+    return EXIT_OK
+
+
+def cmd_apply(args) -> int:
+    import csv
+    import io
+
+    import numpy as np
+
+    from pixelfit._atomic import write_text
+    from pixelfit.data import load_for_apply
+    from pixelfit.evaluate import detection_metrics
+    from pixelfit.rulefile import load_rule
+
+    rule = load_rule(args.rule)
+    ds = load_for_apply(resolve_dataset_path(args.path), rule.shape)
+    keep = np.ones(len(ds), bool)
+    if args.split:
+        keep = _subset_from_split(args.split, args.subset, ds.names)
+    X = rule.binarize(ds.images[keep])
+    scores = rule.scores(X)
+    pred = rule.predict(X, args.threshold)
+    names = [n for n, k in zip(ds.names, keep) if k]
+    labels = ds.labels[keep]
+    labeled = bool(len(labels)) and all(lab != "" for lab in labels)
+    buf = io.StringIO()
+    wr = csv.writer(buf, lineterminator="\n")
+    wr.writerow(["path", "score", "prediction"] + (["label"] if labeled else []))
+    for i, name in enumerate(names):
+        row = [name, f"{scores[i]:.6g}", rule.positive if pred[i] else rule.negative]
+        wr.writerow(row + ([labels[i]] if labeled else []))
+    if args.csv:
+        write_text(args.csv, buf.getvalue())
+    else:
+        sys.stdout.write(buf.getvalue())
+    info = sys.stderr if not args.csv else sys.stdout
+    print(f"applied {rule.family}-{rule.size} to {len(names)} patches: {int(pred.sum())} called {rule.positive!r}"
+          + (f" (threshold {args.threshold:g})" if args.threshold is not None else ""), file=info)
+    for s in ds.skipped:
+        print(f"  skipped {s.path}: {s.reason}", file=info)
+    if labeled:
+        known = set(labels.tolist())
+        if rule.positive not in known:
+            print(f"no patch is labeled {rule.positive!r}; recall is undefined", file=info)
+        m = detection_metrics(labels == rule.positive, pred)
+        print(_metrics_line("labels", m).strip(), file=info)
+    if args.csv:
+        print(f"wrote {args.csv}", file=info)
+    return EXIT_OK
+
+
+def _subset_from_split(split_path: str, subset: str, names: list[str]):
+    import csv
+
+    import numpy as np
+
+    try:
+        with open(split_path, newline="", encoding="utf-8") as fh:
+            rows = {r["path"]: r["subset"] for r in csv.DictReader(fh)}
+    except (OSError, KeyError) as exc:
+        raise PixelfitError(f"{split_path}: cannot read a split.csv with path and subset columns ({exc})") from None
+    missing = [n for n in names if n not in rows]
+    if missing:
+        raise PixelfitError(f"{split_path}: {len(missing)} patch(es) are not in the split, first {missing[0]}")
+    return np.array([rows[n] == subset for n in names], bool)
+
+
+def cmd_export(args) -> int:
+    from pixelfit.rulefile import export_c, load_rule
+
+    rule = load_rule(args.rule)
+    vectors = None
+    if args.vectors_from:
+        from pixelfit.data import load_for_apply
+
+        ds = load_for_apply(resolve_dataset_path(args.vectors_from), rule.shape)
+        vectors = rule.binarize(ds.images[: args.max_vectors])
+    h, v = export_c(rule, args.c, vectors)
+    print(f"wrote {h} and {v}")
+    return EXIT_OK
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -221,6 +369,35 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--target-recall", type=float, metavar="R", help="find the threshold meeting this recall")
     f.add_argument("--no-rules", dest="rules", action="store_false", help="do not write rules/<family>-<size>.json")
     f.set_defaults(func=cmd_fit)
+
+    sh = sub.add_parser("show", help="print a readable summary of a rule file",
+                        description="Family and size, pixels read (as a grid), metrics with intervals, bound, "
+                        "fingerprint, caution.")
+    sh.add_argument("rule", help="a rule file (rules/<family>-<size>.json)")
+    sh.set_defaults(func=cmd_show)
+
+    a = sub.add_parser("apply", help="apply a rule file to patches",
+                       description="Apply a rule (with its own binarization) to every patch under PATH and write "
+                       "path,score,prediction rows (plus label when known); with labels, print the metrics.")
+    a.add_argument("rule")
+    a.add_argument("path", help="folder (any layout, labels optional), image file or .npz")
+    a.add_argument("--csv", metavar="OUT", help="write the rows here instead of standard output")
+    a.add_argument("--threshold", type=float, metavar="T", help="call positive when score >= T "
+                   "(default: the rule's own decision)")
+    a.add_argument("--split", metavar="SPLIT_CSV", help="a split.csv from `pixelfit fit`; with --subset, apply to "
+                   "that part only")
+    a.add_argument("--subset", choices=("train", "test"), default="test", help="part of --split to use (test)")
+    a.set_defaults(func=cmd_apply)
+
+    e = sub.add_parser("export", help="export a rule file as C99 for firmware",
+                       description="Write a self-contained C99 header with a predict function over a row-major "
+                       "patch of 0/1 bytes, and OUT_vectors.h with test vectors.")
+    e.add_argument("rule")
+    e.add_argument("--c", required=True, metavar="OUT.h", help="header to write")
+    e.add_argument("--vectors-from", metavar="PATH", help="take test vectors from these patches (default: "
+                   "generated patches)")
+    e.add_argument("--max-vectors", type=int, default=256, help="most test vectors taken from --vectors-from (256)")
+    e.set_defaults(func=cmd_export)
     return p
 
 

@@ -229,21 +229,24 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     cv = None
     oof = np.full(len(y), np.nan) if fam.scored else None
     if folds:
-        f1s = []
+        f1s, errs = [], []
         splitter = StratifiedKFold(n_splits=folds, shuffle=True, random_state=seed)
         for i, (tr, va) in enumerate(splitter.split(X, y)):
             if cancel is not None and cancel():
                 raise LadderCancelled
             est = _fit(clone(template), X[tr], y[tr], cancel, notes)
             pred = est.predict(X[va])
-            f1s.append(detection_metrics(y[va], pred)["f1"] or 0.0)
+            fold = detection_metrics(y[va], pred)
+            f1s.append(fold["f1"] or 0.0)
+            errs.append(1.0 - fold["accuracy"])
             if oof is not None:
                 s = _score(est, X[va])
                 if s is not None:
                     oof[va] = s
             yield f"{family}-{size}: fold {i + 1} of {folds}"
-        cv = {"folds": folds, "f1_mean": float(np.mean(f1s)), "f1_std": float(np.std(f1s, ddof=1)) if folds > 1 else 0.0,
-              "f1_folds": [float(v) for v in f1s]}
+        cv = {"folds": folds, "f1_mean": float(np.mean(f1s)), "f1_std": float(np.std(f1s, ddof=1)),
+              "f1_folds": [float(v) for v in f1s], "error_mean": float(np.mean(errs)),
+              "error_std": float(np.std(errs, ddof=1))}
     if cancel is not None and cancel():
         raise LadderCancelled
     est = _fit(clone(template), X, y, cancel, notes)

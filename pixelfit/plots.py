@@ -88,7 +88,9 @@ def ladder_png(curves: dict[str, dict[str, list[tuple[float, float]]]], size_nam
         if recommended and recommended[0] == fam:
             x = px(recommended[1])
             d.line([(x, top), (x, bottom)], fill=(40, 150, 70), width=1)
-            d.text((x + 3, top + 2), "recommended", fill=(40, 150, 70), font=font)
+            label_w = d.textlength("recommended", font=font)
+            tx = x + 3 if x + 3 + label_w < right else x - 3 - label_w
+            d.text((tx, top + 2), "recommended", fill=(40, 150, 70), font=font)
     buf = io.BytesIO()
     im.save(buf, format="PNG")
     return buf.getvalue()

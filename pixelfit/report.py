@@ -110,8 +110,7 @@ def error_curves(rungs: list[Rung]) -> dict[str, dict[str, list[tuple[float, flo
         c = curves.setdefault(r.family, {"train": [], "cv": [], "test": [], "bound": []})
         c["train"].append((r.size, 1 - r.train["accuracy"]))
         c["test"].append((r.size, 1 - r.test["accuracy"]))
-        # CV is summarised by F1; its error curve is 1 - F1, the others error rates.
-        c["cv"].append((r.size, None if r.cv is None else 1 - r.cv["f1_mean"]))
+        c["cv"].append((r.size, None if r.cv is None else r.cv["error_mean"]))
         c["bound"].append((r.size, None if r.bound is None else r.bound["error_upper"]))
     return curves
 

@@ -8,12 +8,13 @@ from pixelfit.data._import import (
     binary_target,
     choose_positive,
     load_dataset,
+    load_for_apply,
     read_patch,
 )
 from pixelfit.data._split import fingerprint, raw_fingerprint, stratified_split
 
 __all__ = [
     "METHODS", "Binarizer", "otsu_threshold", "MAX_SIDE", "Dataset", "Skipped", "binary_target",
-    "choose_positive", "load_dataset", "read_patch", "fingerprint", "raw_fingerprint",
+    "choose_positive", "load_dataset", "load_for_apply", "read_patch", "fingerprint", "raw_fingerprint",
     "stratified_split",
 ]

@@ -204,18 +204,22 @@ class _Collector:
         self.labels.append(label)
         self.names.append(rel)
 
-    def finish(self) -> tuple[np.ndarray, np.ndarray, list[str]]:
-        """Stack the patches of the most common shape; list the others as skipped."""
+    def finish(self, shape: tuple[int, int] | None = None) -> tuple[np.ndarray, np.ndarray, list[str]]:
+        """Stack the patches of ``shape`` (default: the most common); list the others as skipped."""
         if not self.images:
-            return np.zeros((0, 0, 0), np.uint8), np.array([], dtype=str), []
-        shapes = Counter(a.shape for a in self.images)
-        # The most common shape wins; ties go to the shape seen first.
-        first_seen = {s: i for i, s in reversed(list(enumerate(a.shape for a in self.images)))}
-        shape = max(shapes, key=lambda s: (shapes[s], -first_seen[s]))
+            h, w = shape or (0, 0)
+            return np.zeros((0, h, w), np.uint8), np.array([], dtype=str), []
+        expected = shape is not None
+        if shape is None:
+            shapes = Counter(a.shape for a in self.images)
+            # The most common shape wins; ties go to the shape seen first.
+            first_seen = {s: i for i, s in reversed(list(enumerate(a.shape for a in self.images)))}
+            shape = max(shapes, key=lambda s: (shapes[s], -first_seen[s]))
         keep = [i for i, a in enumerate(self.images) if a.shape == shape]
         for i, a in enumerate(self.images):
             if a.shape != shape:
-                self.skip(self.names[i], f"patch is {a.shape[0]}x{a.shape[1]}, the others are {shape[0]}x{shape[1]}")
+                other = "expected" if expected else "the others are"
+                self.skip(self.names[i], f"patch is {a.shape[0]}x{a.shape[1]}, {other} {shape[0]}x{shape[1]}")
         images = np.stack([self.images[i] for i in keep]).astype(np.uint8)
         labels = np.array([self.labels[i] for i in keep], dtype=str)
         names = [self.names[i] for i in keep]
@@ -292,8 +296,11 @@ def _collect_folder(folder: Path, col: _Collector) -> str:
     return "class-folders"
 
 
-def load_npz(path: Path) -> Dataset:
-    """Load an ``.npz`` file; see the module docstring for the arrays it must hold."""
+def load_npz(path: Path, require_labels: bool = True) -> Dataset:
+    """Load an ``.npz`` file; see the module docstring for the arrays it must hold.
+
+    With ``require_labels=False`` a file without ``labels`` loads with empty labels.
+    """
     try:
         with zipfile.ZipFile(path) as zf:
             total = sum(i.file_size for i in zf.infolist())
@@ -301,11 +308,11 @@ def load_npz(path: Path) -> Dataset:
             raise DatasetError(f"{path}: arrays would take {total / 1e9:.1f} GB; the limit is {MAX_NPZ_BYTES / 1e9:.0f} GB")
         with np.load(path, allow_pickle=False) as npz:
             members = set(npz.files)
-            missing = {"images", "labels"} - members
+            missing = ({"images", "labels"} if require_labels else {"images"}) - members
             if missing:
                 raise DatasetError(f"{path}: missing array(s) {', '.join(sorted(missing))}; found {', '.join(sorted(members)) or 'none'}")
             images = npz["images"]
-            labels = npz["labels"]
+            labels = npz["labels"] if "labels" in members else np.full(len(npz["images"]), "")
             names = npz["names"] if "names" in members else None
     except DatasetError:
         raise
@@ -437,3 +444,42 @@ def choose_positive(counts: dict[str, int], positive: str | None = None) -> tupl
 def binary_target(ds: Dataset, positive: str) -> np.ndarray:
     """Boolean target of shape (n_patches,): True where the patch is of the positive class."""
     return ds.labels == positive
+
+
+def load_for_apply(path: str | os.PathLike, shape: tuple[int, int]) -> Dataset:
+    """Patches to apply a rule to: any layout, labels where the layout gives them ('' otherwise).
+
+    Files directly in the folder (or a single image file) are unlabeled; files below a first-level
+    sub-folder take its name as label (below ``train/``/``test/``, the name one level further down);
+    ``labels.csv`` labels the files it lists. Patches of another shape than ``shape`` are skipped
+    with the reason.
+    """
+    root = Path(path)
+    if not root.exists():
+        raise DatasetError(f"{root}: no such file or folder")
+    if root.is_file() and root.suffix.lower() == ".npz":
+        ds = load_npz(root, require_labels=False)
+        if ds.shape != tuple(shape):
+            raise DatasetError(f"{root}: patches are {ds.shape[0]}x{ds.shape[1]}, the rule reads {shape[0]}x{shape[1]}")
+        return ds
+    col = _Collector(root.parent if root.is_file() else root)
+    if root.is_file():
+        col.add_file(root, "")
+    elif (root / LABELS_CSV).is_file():
+        _collect_labels_csv(root, col)
+    else:
+        for file in _walk_files(root):
+            parts = file.relative_to(root).parts
+            if len(parts) > 2 and parts[0] in ("train", "test"):
+                label = parts[1]
+            elif len(parts) > 1:
+                label = parts[0]
+            else:
+                label = ""
+            col.add_file(file, label)
+    images, labels, names = col.finish(tuple(shape))
+    ds = Dataset(images=images, labels=labels, names=names, source=str(root), layout="apply", skipped=col.skipped)
+    if len(ds) == 0:
+        first = f"; first skipped: {ds.skipped[0].path}: {ds.skipped[0].reason}" if ds.skipped else ""
+        raise DatasetError(f"{root}: no patch the rule can read{first}")
+    return ds

@@ -10,10 +10,16 @@ from pixelfit.evaluate._bounds import (
     vc_bound,
     vc_confidence,
 )
-from pixelfit.evaluate._metrics import confusion, detection_metrics, error_rate, wilson_interval
+from pixelfit.evaluate._metrics import (
+    clopper_pearson_interval,
+    confusion,
+    detection_metrics,
+    error_rate,
+    wilson_interval,
+)
 
 __all__ = [
     "consistent_sample_size", "hoeffding_bound", "log2_comb", "log2_lut_class",
-    "log2_memorize_class", "log2_tree_class", "vc_bound", "vc_confidence", "confusion",
-    "detection_metrics", "error_rate", "wilson_interval",
+    "log2_memorize_class", "log2_tree_class", "vc_bound", "vc_confidence", "clopper_pearson_interval",
+    "confusion", "detection_metrics", "error_rate", "wilson_interval",
 ]

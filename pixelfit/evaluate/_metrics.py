@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from scipy.stats import beta
 from sklearn.metrics import confusion_matrix, f1_score, matthews_corrcoef, precision_score, recall_score
 
 Z95 = 1.959963984540054  # standard normal quantile at 0.975
@@ -24,6 +25,20 @@ def wilson_interval(successes: int, n: int, z: float = Z95) -> tuple[float, floa
     centre = (p + z2 / (2 * n)) / (1 + z2 / n)
     half = (z / (1 + z2 / n)) * math.sqrt(p * (1 - p) / n + z2 / (4 * n * n))
     return (max(0.0, centre - half), min(1.0, centre + half))
+
+
+def clopper_pearson_interval(successes: int, n: int, alpha: float = 0.05) -> tuple[float, float] | None:
+    """Clopper-Pearson ("exact") interval for a binomial proportion; None when ``n == 0``.
+
+    The bounds are quantiles of beta distributions: Beta(x, n - x + 1) at alpha / 2 and
+    Beta(x + 1, n - x) at 1 - alpha / 2, with 0 for x = 0 and 1 for x = n. It never covers less
+    than 1 - alpha, at the price of being wider than :func:`wilson_interval`.
+    """
+    if n <= 0:
+        return None
+    lo = 0.0 if successes <= 0 else float(beta.ppf(alpha / 2, successes, n - successes + 1))
+    hi = 1.0 if successes >= n else float(beta.isf(alpha / 2, successes + 1, n - successes))
+    return (lo, hi)
 
 
 def confusion(y_true: np.ndarray, y_pred: np.ndarray) -> dict[str, int]:

@@ -25,6 +25,7 @@ from sklearn.svm import l1_min_c
 from sklearn.tree import DecisionTreeClassifier
 from sklearn.utils.validation import check_is_fitted
 
+from pixelfit._numeric import linear_decision, sigmoid
 from pixelfit.errors import TrainingError
 from pixelfit.evaluate._bounds import (
     hoeffding_bound,
@@ -40,75 +41,100 @@ FAMILY_ORDER = ("constant", "lut", "nb", "logistic", "tree", "mlp", "memorize")
 
 
 class SparseLogistic(ClassifierMixin, BaseEstimator):
-    """L1-penalised logistic regression whose penalty is tuned to keep at most k pixel weights.
+    """Logistic regression on k pixels chosen by an L1 penalty tuned to leave k non-zero weights.
 
-    ``fit`` searches the inverse penalty C (bisection on log C, liblinear solver) for the largest
-    number of non-zero weights not above k; with k >= n_pixels the penalty is made negligible.
+    ``fit`` walks the inverse penalty C of an L1-penalised fit (bisection on log C, liblinear) to
+    the largest support of at most k pixels; the weights are then refit on that support with a
+    light L2 penalty (C = ``refit_c``), because at the C where the k-th pixel enters, the L1
+    weights are shrunk almost to zero. With k >= n_pixels every pixel is used.
 
     Attributes
     ----------
-    model_ : LogisticRegression
+    support_ : ndarray of shape (n_nonzero,), int
+        Flat pixel indices with a weight.
+    coef_ : ndarray of shape (1, n_pixels)
+    intercept_ : ndarray of shape (1,)
     C_ : float
+        The L1 inverse penalty that chose the support.
     n_nonzero_ : int
-    coef_, intercept_, classes_ : as in ``LogisticRegression``
+    classes_ : ndarray of shape (2,)
     """
 
-    def __init__(self, k: int = 1, max_steps: int = 30):
+    def __init__(self, k: int = 1, refit_c: float = 10.0, max_steps: int = 30):
         self.k = k
+        self.refit_c = refit_c
         self.max_steps = max_steps
 
-    def _fit_c(self, X, y, C):
-        m = LogisticRegression(l1_ratio=1.0, solver="liblinear", C=C, max_iter=1000, random_state=0)
+    @staticmethod
+    def _l1(X, y, C):
+        # A large intercept_scaling keeps liblinear from penalising the intercept.
+        m = LogisticRegression(l1_ratio=1.0, solver="liblinear", C=C, max_iter=1000, random_state=0,
+                               intercept_scaling=100.0)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", ConvergenceWarning)
             m.fit(X, y)
-        return m, int(np.count_nonzero(m.coef_))
+        return np.flatnonzero(m.coef_.ravel())
+
+    def _support(self, X, y, k: int) -> tuple[np.ndarray, float]:
+        lo = l1_min_c(X, y, loss="log") if X.any() else 1.0
+        log_lo, log_hi = math.log(lo), math.log(lo * 1e6)
+        best: tuple[np.ndarray, float] | None = None
+        for _ in range(self.max_steps):
+            mid = (log_lo + log_hi) / 2
+            sup = self._l1(X, y, math.exp(mid))
+            if len(sup) <= k and (best is None or len(sup) > len(best[0])):
+                best = (sup, math.exp(mid))
+            if len(sup) == k:
+                break
+            if len(sup) < k:
+                log_lo = mid
+            else:
+                log_hi = mid
+        if best is None or len(best[0]) == 0:
+            # Even the weakest useful penalty selects too many: keep the k strongest pixels.
+            m = LogisticRegression(l1_ratio=1.0, solver="liblinear", C=lo * 1.5, intercept_scaling=100.0).fit(X, y)
+            order = np.argsort(-np.abs(m.coef_.ravel()), kind="stable")[:k]
+            best = (np.sort(order), lo * 1.5)
+        return best
 
     def fit(self, X, y):
         X = np.asarray(X, dtype=np.float64)
+        y = np.asarray(y)
         k = int(self.k)
         p = X.shape[1]
         if k < 1:
             raise TrainingError(f"logistic size k={k} must be at least 1")
-        if len(np.unique(y)) < 2:
+        self.classes_ = np.unique(y)
+        if len(self.classes_) != 2:
             raise TrainingError("logistic regression needs both classes in the training data")
-        lo = l1_min_c(X, y, loss="log") if X.any() else 1.0
-        best = None
         if k >= p:
-            best = self._fit_c(X, y, lo * 1e6) + (lo * 1e6,)
+            support, c = np.arange(p), math.inf
         else:
-            log_lo, log_hi = math.log(lo), math.log(lo * 1e6)
-            for _ in range(self.max_steps):
-                mid = (log_lo + log_hi) / 2
-                model, nnz = self._fit_c(X, y, math.exp(mid))
-                if nnz <= k and (best is None or nnz > best[1] or (nnz == best[1] and mid > math.log(best[2]))):
-                    best = (model, nnz, math.exp(mid))
-                if nnz == k and log_hi - log_lo < 0.05:
-                    break
-                if nnz <= k:
-                    log_lo = mid
-                else:
-                    log_hi = mid
-            if best is None:
-                best = self._fit_c(X, y, lo) + (lo,)
-        self.model_, self.n_nonzero_, self.C_ = best
-        self.classes_ = self.model_.classes_
-        self.coef_ = self.model_.coef_
-        self.intercept_ = self.model_.intercept_
+            support, c = self._support(X, y, k)
+        refit = LogisticRegression(C=self.refit_c, max_iter=2000)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", ConvergenceWarning)
+            refit.fit(X[:, support], y)
+        coef = np.zeros((1, p))
+        coef[0, support] = refit.coef_.ravel()
+        self.support_ = support.astype(np.intp)
+        self.coef_ = coef
+        self.intercept_ = np.asarray(refit.intercept_, dtype=np.float64)
+        self.C_ = c
+        self.n_nonzero_ = int(np.count_nonzero(coef))
         self.n_features_in_ = p
         return self
 
     def decision_function(self, X):
-        check_is_fitted(self, "model_")
-        return self.model_.decision_function(np.asarray(X, dtype=np.float64))
+        check_is_fitted(self, "coef_")
+        return linear_decision(X, self.coef_, float(self.intercept_[0]))
 
     def predict(self, X):
-        check_is_fitted(self, "model_")
-        return self.model_.predict(np.asarray(X, dtype=np.float64))
+        return self.classes_[(self.decision_function(X) > 0).astype(np.intp)]
 
     def predict_proba(self, X):
-        check_is_fitted(self, "model_")
-        return self.model_.predict_proba(np.asarray(X, dtype=np.float64))
+        s = sigmoid(self.decision_function(X))
+        return np.column_stack([1 - s, s])
 
 
 def _powers_up_to(limit: int, top: int) -> list[int]:

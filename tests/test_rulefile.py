@@ -1,0 +1,184 @@
+import copy
+import csv
+import json
+import shutil
+import subprocess
+
+import numpy as np
+import pytest
+
+from pixelfit.cli import main
+from pixelfit.data import Binarizer, Dataset
+from pixelfit.errors import RuleFileError
+from pixelfit.ladder import prepare, train_rung
+from pixelfit.rulefile import export_c, load_rule, parse_rule, rule_document, save_rung
+
+FAMILY_SIZES = [("constant", 0), ("lut", 3), ("nb", 4), ("logistic", 6), ("tree", 4), ("mlp", 4), ("memorize", 36)]
+
+
+@pytest.fixture(scope="module")
+def prepared():
+    rng = np.random.default_rng(7)
+    n = 500
+    imgs = (rng.random((n, 6, 6)) * 255).astype(np.uint8)
+    b = imgs > 127
+    noisy = rng.random(n) < 0.05
+    lab = np.where(((b[:, 2, 3] & b[:, 4, 4]) | (b[:, 1, 1] & ~b[:, 2, 3])) ^ noisy, "open", "capped")
+    ds = Dataset(imgs, lab, [f"#{i}" for i in range(n)], "generated", "npz")
+    return prepare(ds, Binarizer.parse("fixed:128"))
+
+
+@pytest.fixture(scope="module")
+def rungs(prepared):
+    return {fam: train_rung(prepared, fam, size, folds=2) for fam, size in FAMILY_SIZES}
+
+
+@pytest.mark.parametrize("family", [f for f, _ in FAMILY_SIZES])
+def test_round_trip_identical_predictions(prepared, rungs, family, tmp_path):
+    rung = rungs[family]
+    path = save_rung(tmp_path / f"{family}.json", prepared, rung)
+    rule = load_rule(path)
+    X = np.vstack([prepared.X_train, prepared.X_test])
+    expected = np.asarray(rung.estimator.predict(X), bool)
+    assert np.array_equal(rule.predict(X), expected)
+    if hasattr(rung.estimator, "predict_proba"):
+        assert np.allclose(rule.scores(X), rung.estimator.predict_proba(X)[:, 1], atol=1e-12)
+    doc = json.loads(path.read_text())
+    assert doc["schema_version"] == 1 and doc["model"]["family"] == family
+    assert len(doc["training_data"]["fingerprint"]) == 64
+    assert "caution" in doc and "validate" in doc["caution"].lower()
+    assert "bound_convention" in doc["evaluation"]
+
+
+def test_rule_applies_its_own_binarization(prepared, rungs):
+    rule = parse_rule(rule_document(prepared, rungs["lut"]))
+    imgs = prepared.dataset.images
+    X = rule.binarize(imgs)
+    assert np.array_equal(X, Binarizer.parse("fixed:128").transform(imgs).reshape(len(imgs), -1))
+
+
+@pytest.fixture
+def valid_doc(prepared, rungs):
+    return rule_document(prepared, rungs["lut"])
+
+
+def _mutate(doc, path, value=KeyError):
+    d = copy.deepcopy(doc)
+    target = d
+    for key in path[:-1]:
+        target = target[key]
+    if value is KeyError:
+        del target[path[-1]]
+    else:
+        target[path[-1]] = value
+    return d
+
+
+@pytest.mark.parametrize("path,value,match", [
+    (("format",), "other-tool", "format"),
+    (("schema_version",), 2, "newer"),
+    (("model",), KeyError, "model"),
+    (("patch_shape",), KeyError, "patch_shape"),
+    (("model", "table"), [0, 1], "model/table"),
+    (("model", "pixels"), [[0, 0], [1, 1], [9, 9]], "outside"),
+    (("model", "scores"), [0.5] * 7, "model/scores"),
+    (("training_data", "fingerprint"), "abc", "fingerprint"),
+    (("binarize", "method"), "magic", "binarize"),
+])
+def test_refusals(valid_doc, path, value, match):
+    with pytest.raises(RuleFileError, match=match):
+        parse_rule(_mutate(valid_doc, path, value))
+
+
+def test_refuses_bad_json_and_nan(valid_doc, tmp_path):
+    with pytest.raises(RuleFileError, match="invalid JSON"):
+        parse_rule("{not json")
+    text = json.dumps(valid_doc).replace('"bias"', '"bias"')
+    doc = json.loads(text)
+    doc["model"]["scores"][0] = float("nan")
+    with pytest.raises(RuleFileError, match="NaN"):
+        parse_rule(json.dumps(doc))  # json.dumps writes NaN, which a rule file may not hold
+    with pytest.raises(RuleFileError, match="JSON object"):
+        parse_rule("[1, 2]")
+
+
+def test_refuses_wrong_weight_shape(prepared, rungs):
+    doc = rule_document(prepared, rungs["logistic"])
+    doc["model"]["weights"] = doc["model"]["weights"][:-1]
+    with pytest.raises(RuleFileError, match="model/weights"):
+        parse_rule(doc)
+    doc = rule_document(prepared, rungs["mlp"])
+    doc["model"]["layers"][0]["bias"] = [float("inf")] * len(doc["model"]["layers"][0]["bias"])
+    with pytest.raises(RuleFileError, match="infinity"):
+        parse_rule(doc)
+
+
+def test_cli_load_error_is_one_line(tmp_path, capsys):
+    bad = tmp_path / "bad.json"
+    bad.write_text('{"format": "pixelfit-rule"}')
+    assert main(["show", str(bad)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "Traceback" not in err
+
+
+def test_fit_writes_rules_and_apply_reproduces_split_metrics(presplit_folder, tmp_path, capsys):
+    out = tmp_path / "run"
+    assert main(["fit", str(presplit_folder), "--out", str(out), "--families", "constant,lut,tree",
+                 "--sizes", "lut=1,2", "--sizes", "tree=2", "--folds", "2"]) == 0
+    summary = json.loads((out / "summary.json").read_text())
+    for r in summary["rungs"]:
+        assert (out / r["rule_file"]).is_file()
+    rule_path = out / "rules" / "lut-2.json"
+    recorded = json.loads(rule_path.read_text())["evaluation"]
+    for part, sub in (("train", "train"), ("test", "test")):
+        csv_out = tmp_path / f"{part}.csv"
+        capsys.readouterr()
+        assert main(["apply", str(rule_path), str(presplit_folder / sub), "--csv", str(csv_out)]) == 0
+        rows = list(csv.DictReader(open(csv_out)))
+        assert len(rows) == recorded[part]["n"]
+        pos = json.loads(rule_path.read_text())["classes"]["positive"]
+        tp = sum(r["prediction"] == pos and r["label"] == pos for r in rows)
+        fp = sum(r["prediction"] == pos and r["label"] != pos for r in rows)
+        assert (tp, fp) == (recorded[part]["tp"], recorded[part]["fp"])
+    assert main(["show", str(rule_path)]) == 0
+    shown = capsys.readouterr().out
+    assert "lut-2" in shown and "caution" in shown and shown.count("#") >= 2
+
+
+def test_apply_refuses_wrong_shape_per_file(presplit_folder, tmp_path, capsys):
+    from PIL import Image
+
+    out = tmp_path / "run"
+    assert main(["fit", str(presplit_folder), "--out", str(out), "--families", "lut", "--sizes", "lut=1",
+                 "--folds", "0"]) == 0
+    folder = tmp_path / "mixed"
+    folder.mkdir()
+    Image.fromarray(np.zeros((8, 8), np.uint8)).save(folder / "good.png")
+    Image.fromarray(np.zeros((9, 9), np.uint8)).save(folder / "odd.png")
+    capsys.readouterr()
+    assert main(["apply", str(out / "rules" / "lut-1.json"), str(folder)]) == 0
+    captured = capsys.readouterr()
+    assert "good.png" in captured.out and "odd.png" not in captured.out
+    assert "odd.png: patch is 9x9, expected 8x8" in captured.err
+
+
+@pytest.mark.skipif(shutil.which("cc") is None and shutil.which("gcc") is None, reason="no C compiler")
+@pytest.mark.parametrize("family", [f for f, _ in FAMILY_SIZES])
+def test_c_export_compiles_and_agrees(prepared, rungs, family, tmp_path):
+    cc = shutil.which("cc") or shutil.which("gcc")
+    rule = parse_rule(rule_document(prepared, rungs[family]))
+    X = np.vstack([prepared.X_train, prepared.X_test])
+    header, vectors = export_c(rule, tmp_path / f"{family}_rule.h", vectors=X)
+    ident = header.stem
+    P = ident.upper()
+    (tmp_path / "main.c").write_text(
+        f'#include <stdio.h>\n#include "{vectors.name}"\n'
+        f"int main(void) {{\n  int i;\n  for (i = 0; i < {P}_N_VECTORS; ++i) {{\n"
+        f'    printf("%d\\n", {ident}_predict({ident}_vector_patches[i]));\n  }}\n  return 0;\n}}\n')
+    exe = tmp_path / "check"
+    build = subprocess.run([cc, "-Wall", "-Wextra", "-Werror", "-std=c99", "-pedantic", "-O1", "-o", str(exe),
+                            str(tmp_path / "main.c"), "-lm"], capture_output=True, text=True)
+    assert build.returncode == 0, build.stderr
+    got = np.array([int(v) for v in subprocess.run([str(exe)], capture_output=True, text=True,
+                                                   check=True).stdout.split()], bool)
+    assert np.array_equal(got, rule.predict(X))
