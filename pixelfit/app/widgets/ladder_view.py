@@ -20,7 +20,7 @@ FAMILY_RGB = {"constant": (110, 110, 110), "lut": (46, 92, 160), "nb": (40, 150,
 #: Pen style of each curve kind.
 KIND_STYLE = {"train": QtCore.Qt.PenStyle.DashLine, "cv": QtCore.Qt.PenStyle.SolidLine,
               "test": QtCore.Qt.PenStyle.DotLine, "bound": QtCore.Qt.PenStyle.DashDotLine}
-KIND_LABEL = {"train": "train error", "cv": "CV 1 − F1", "test": "held-out error", "bound": "bound (95 %)"}
+KIND_LABEL = {"train": "train error", "cv": "CV error", "test": "held-out error", "bound": "bound (95 %)"}
 
 
 def _num(v, digits: int = 3) -> str:
@@ -156,6 +156,11 @@ class LadderTable(Listens, QtWidgets.QTableView):
         self.viewport().update()
 
 
+def _point_error(r: Rung) -> float:
+    """Where a rung's clickable point sits: its CV error, or its held-out error without CV."""
+    return r.cv["error_mean"] if r.cv else 1 - r.test["accuracy"]
+
+
 def size_position(size: int) -> float:
     """Horizontal position of a size: log2 spacing, with size 0 (the constant) one step left of 1."""
     return math.log2(size) if size >= 1 else -1.0
@@ -215,7 +220,7 @@ class ErrorPlot(Listens, pg.PlotWidget):
                 if kind == "cv" or (kind == "test" and not any(e is not None for _, e in kinds["cv"])):
                     self.legend.addItem(item, fam)
         for r in self.session.rungs:
-            y = 1 - r.cv["f1_mean"] if r.cv else 1 - r.test["accuracy"]
+            y = _point_error(r)
             rgb = FAMILY_RGB.get(r.family, (0, 0, 0))
             spots.append({"pos": (size_position(r.size), min(1.0, y)), "data": r.key,
                           "brush": pg.mkBrush(*rgb), "pen": pg.mkPen("w"),
@@ -233,6 +238,6 @@ class ErrorPlot(Listens, pg.PlotWidget):
         if r is None:
             self.marker.setData([])
             return
-        y = 1 - r.cv["f1_mean"] if r.cv else 1 - r.test["accuracy"]
+        y = _point_error(r)
         self.marker.setData([{"pos": (size_position(r.size), min(1.0, y))}])
 
