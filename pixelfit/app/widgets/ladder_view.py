@@ -180,10 +180,14 @@ class ErrorPlot(Listens, pg.PlotWidget):
         pi.showGrid(x=True, y=True, alpha=0.25)
         pi.setYRange(0, 1, padding=0.02)
         self.legend = pi.addLegend(offset=(-10, 10), labelTextSize="8pt", colCount=2)
+        for kind, style in KIND_STYLE.items():  # line style keys, in black, before the family colours
+            self.legend.addItem(pg.PlotDataItem(pen=pg.mkPen((0, 0, 0), width=1.5, style=style)), KIND_LABEL[kind])
         self.points = pg.ScatterPlotItem(size=9, hoverable=True, tip=None)
         self.points.sigClicked.connect(self._clicked)
         self.marker = pg.ScatterPlotItem(size=18, symbol="o", pen=pg.mkPen((0, 0, 0), width=2), brush=None)
-        self._curves: list[pg.PlotDataItem] = []
+        # One curve item per (family, kind), made on first use and then only given new data: a
+        # rung arriving must cost the GUI thread little (see benchmarks/bench_gui_stall.py).
+        self._curves: dict[tuple[str, str], pg.PlotDataItem] = {}
         self.addItem(self.points)
         self.addItem(self.marker)
         self.listen(session, "rungs", self.redraw)
@@ -194,35 +198,35 @@ class ErrorPlot(Listens, pg.PlotWidget):
         if len(points):
             self.session.select(points[0].data())
 
+    def _curve(self, family: str, kind: str) -> pg.PlotDataItem:
+        item = self._curves.get((family, kind))
+        if item is None:
+            rgb = FAMILY_RGB.get(family, (0, 0, 0))
+            item = pg.PlotDataItem(pen=pg.mkPen(rgb, width=2.5 if kind == "cv" else 1.5, style=KIND_STYLE[kind]))
+            self.getPlotItem().addItem(item)
+            self._curves[(family, kind)] = item
+            if kind == "cv":
+                self.legend.addItem(item, family)
+        return item
+
     def redraw(self) -> None:
         pi = self.getPlotItem()
-        for c in self._curves:
-            pi.removeItem(c)
-        self._curves = []
-        self.legend.clear()
-        for kind, style in KIND_STYLE.items():  # line style keys, in black, before the family colours
-            self.legend.addItem(pg.PlotDataItem(pen=pg.mkPen((0, 0, 0), width=1.5, style=style)), KIND_LABEL[kind])
         curves = self.session.error_curves()
-        spots = []
         sizes = set()
+        for key, item in self._curves.items():
+            if key[0] not in curves:
+                item.setData([], [])
         for fam, kinds in curves.items():
-            rgb = FAMILY_RGB.get(fam, (0, 0, 0))
             for kind, pts in kinds.items():
+                sizes.update(s for s, _ in pts)
                 xs = [size_position(s) for s, e in pts if e is not None]
                 ys = [min(1.0, e) for s, e in pts if e is not None]
-                sizes.update(s for s, _ in pts)
-                if not xs:
-                    continue
-                width = 2.5 if kind == "cv" else 1.5
-                item = pg.PlotDataItem(xs, ys, pen=pg.mkPen(rgb, width=width, style=KIND_STYLE[kind]))
-                pi.addItem(item)
-                self._curves.append(item)
-                if kind == "cv" or (kind == "test" and not any(e is not None for _, e in kinds["cv"])):
-                    self.legend.addItem(item, fam)
+                if xs or (fam, kind) in self._curves:
+                    self._curve(fam, kind).setData(xs, ys)
+        spots = []
         for r in self.session.rungs:
-            y = _point_error(r)
             rgb = FAMILY_RGB.get(r.family, (0, 0, 0))
-            spots.append({"pos": (size_position(r.size), min(1.0, y)), "data": r.key,
+            spots.append({"pos": (size_position(r.size), min(1.0, _point_error(r))), "data": r.key,
                           "brush": pg.mkBrush(*rgb), "pen": pg.mkPen("w"),
                           "symbol": "star" if r.recommended else "o", "size": 16 if r.recommended else 9})
         self.points.setData(spots)
