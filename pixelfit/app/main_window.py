@@ -81,7 +81,7 @@ class MainWindow(QtWidgets.QMainWindow):
         left_scroll = QtWidgets.QScrollArea()
         left_scroll.setWidget(left)
         left_scroll.setWidgetResizable(True)
-        left_scroll.setMinimumWidth(330)
+        left_scroll.setMinimumWidth(290)
         left_scroll.setHorizontalScrollBarPolicy(QtCore.Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
 
         self.error_plot = ErrorPlot(s)
@@ -104,7 +104,7 @@ class MainWindow(QtWidgets.QMainWindow):
         split.addWidget(inspector_box)
         split.setStretchFactor(1, 3)
         split.setStretchFactor(2, 2)
-        split.setSizes([340, 760, 580])
+        split.setSizes([300, 820, 560])
         self.strip = MessageStrip()
         central = QtWidgets.QWidget()
         lay = QtWidgets.QVBoxLayout(central)

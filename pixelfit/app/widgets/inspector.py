@@ -36,6 +36,8 @@ class PixelMap(pg.GraphicsLayoutWidget):
         self.plot.invertY(True)
         self.plot.getAxis("bottom").setLabel("column")
         self.plot.getAxis("left").setLabel("row")
+        for side in ("bottom", "left"):
+            self.plot.getAxis(side).enableAutoSIPrefix(False)
         self.image = pg.ImageItem(axisOrder="row-major")
         self.plot.addItem(self.image)
         self.outline = pg.ScatterPlotItem(symbol="s", brush=None, pen=pg.mkPen((0, 0, 0), width=1.5), pxMode=False)
@@ -119,8 +121,8 @@ class RungInspector(Listens, QtWidgets.QWidget):
         side.addWidget(self.confusion)
         side.addStretch(1)
         mid = QtWidgets.QHBoxLayout()
-        mid.addWidget(self.pixmap, 1)
-        mid.addLayout(side, 1)
+        mid.addWidget(self.pixmap, 3)
+        mid.addLayout(side, 2)
         thr = QtWidgets.QGridLayout()
         thr.addWidget(QtWidgets.QLabel("score threshold"), 0, 0)
         thr.addWidget(self.slider, 0, 1, 1, 2)
@@ -162,11 +164,11 @@ class RungInspector(Listens, QtWidgets.QWidget):
         t.setEditTriggers(QtWidgets.QAbstractItemView.EditTrigger.NoEditTriggers)
         t.setSelectionMode(QtWidgets.QAbstractItemView.SelectionMode.NoSelection)
         t.horizontalHeader().setSectionResizeMode(QtWidgets.QHeaderView.ResizeMode.Stretch)
-        t.verticalHeader().setSectionResizeMode(QtWidgets.QHeaderView.ResizeMode.ResizeToContents)
+        t.verticalHeader().setSectionResizeMode(QtWidgets.QHeaderView.ResizeMode.Fixed)
+        t.verticalHeader().setDefaultSectionSize(22)
         t.setVerticalScrollBarPolicy(QtCore.Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
         t.setHorizontalScrollBarPolicy(QtCore.Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
-        rows = t.rowCount()
-        t.setFixedHeight(t.horizontalHeader().sizeHint().height() + rows * t.verticalHeader().defaultSectionSize() + 4)
+        t.setFixedHeight(t.horizontalHeader().sizeHint().height() + t.verticalHeader().length() + 2 * t.frameWidth())
 
     @staticmethod
     def _thumb_list() -> QtWidgets.QListWidget:

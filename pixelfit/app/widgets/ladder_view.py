@@ -50,9 +50,9 @@ COLUMNS: list[tuple[str, str, callable]] = [
     ("train F1", "F1 on the training part", lambda r: _num(r.train["f1"])),
     ("CV F1 ± sd", "cross-validated F1 on the training part, mean ± fold standard deviation",
      lambda r: "–" if not r.cv else f"{r.cv['f1_mean']:.3f} ± {r.cv['f1_std']:.3f}"),
-    ("held-out precision [95 %]", "precision on held-out patches with its Wilson interval",
+    ("held-out P [95 % CI]", "precision on held-out patches with its Wilson interval",
      lambda r: _with_ci(r.test["precision"], r.test["precision_ci"])),
-    ("held-out recall [95 %]", "recall on held-out patches with its Wilson interval",
+    ("held-out R [95 % CI]", "recall on held-out patches with its Wilson interval",
      lambda r: _with_ci(r.test["recall"], r.test["recall_ci"])),
     ("bound", "upper bound on the true error rate at 95 % confidence",
      lambda r: "–" if r.bound is None else _num(r.bound["error_upper"])),
@@ -176,9 +176,9 @@ class ErrorPlot(Listens, pg.PlotWidget):
         self.hideButtons()
         pi = self.getPlotItem()
         pi.setLabel("left", "error rate")
+        pi.getAxis("left").enableAutoSIPrefix(False)
         pi.setLabel("bottom", "size (log2 spacing)")
         pi.showGrid(x=True, y=True, alpha=0.25)
-        pi.setYRange(0, 1, padding=0.02)
         self.legend = pi.addLegend(offset=(-10, 10), labelTextSize="8pt", colCount=2)
         for kind, style in KIND_STYLE.items():  # line style keys, in black, before the family colours
             self.legend.addItem(pg.PlotDataItem(pen=pg.mkPen((0, 0, 0), width=1.5, style=style)), KIND_LABEL[kind])
@@ -230,6 +230,8 @@ class ErrorPlot(Listens, pg.PlotWidget):
                           "brush": pg.mkBrush(*rgb), "pen": pg.mkPen("w"),
                           "symbol": "star" if r.recommended else "o", "size": 16 if r.recommended else 9})
         self.points.setData(spots)
+        shown = [e for kinds in curves.values() for pts in kinds.values() for _, e in pts if e is not None]
+        pi.setYRange(0, min(1.0, max(shown, default=1.0) * 1.1 + 0.02), padding=0)
         ticks = [(size_position(s), str(s)) for s in sorted(sizes)]
         pi.getAxis("bottom").setTicks([ticks])
         if sizes:
