@@ -2,6 +2,8 @@
 its data, not on pixels (except the one row-major check, which is about pixels by design)."""
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pytest
 
@@ -104,7 +106,14 @@ def test_full_flow(qtbot, window, class_folder, tmp_path, monkeypatch, answers):
     assert sum(r.recommended for r in s.rungs) == 1 and s.selected is s.recommended
     assert s.unsaved
 
-    # Selecting a row of the table selects the rung everywhere.
+    assert w.climb.bar.value() == w.climb.bar.maximum() == s.progress_state[1] > 0
+
+    # Clicking a point of the error plot selects that rung; so does a row of the table.
+    plot = w.error_plot.points
+    spot = next(p for p in plot.points() if p.data() == "tree-1")
+    plot.sigClicked.emit(plot, [spot], None)
+    assert s.selected.key == "tree-1"
+    assert w.table.selectionModel().currentIndex().row() == [r.key for r in s.rungs].index("tree-1")
     row = next(i for i, r in enumerate(s.rungs) if r.key == "lut-2")
     w.table.selectRow(row)
     assert s.selected.key == "lut-2"
@@ -123,6 +132,20 @@ def test_full_flow(qtbot, window, class_folder, tmp_path, monkeypatch, answers):
     assert w.inspector.fp_list.count() == min(len(fp), 48)
     w.inspector.slider.setValue(0)
     assert s.threshold_metrics()["recall"] == 1.0  # everything is called positive at threshold 0
+
+    # A target precision: the point shown is the core's choice on the held-out operating points,
+    # and "move there" puts the threshold on it.
+    from pixelfit.evaluate._compare import threshold_for_target
+
+    points = s.selected.operating["test_points"]
+    target = math.floor(max(p["precision"] for p in points) * 100) / 100  # reachable, on the spin's grid
+    w.inspector.target.setValue(target)
+    assert s.target_precision == target
+    pt = threshold_for_target(points, target, None)
+    assert pt is not None and s.target_point() == pt
+    w.inspector.go_target.click()
+    assert s.threshold == pytest.approx(pt["threshold"]) and s.threshold_metrics()["precision"] >= target
+    assert f"{pt['threshold']:.3f}" in w.inspector.target_label.text()
 
     # Switching the map to a data map and back.
     w.inspector.kind.setCurrentIndex(w.inspector.kind.findData("mean_difference"))
@@ -153,6 +176,7 @@ def test_halt_keeps_finished_rungs(qtbot, window, tmp_path):
     w.session.set_ladder(families=["constant", "lut", "logistic", "tree", "mlp"], max_size=None, folds=5)
     assert w.start_climb()
     qtbot.waitUntil(lambda: len(s.rungs) >= 1, timeout=30_000)
+    assert s.running and w.table.model().rowCount() == len(s.rungs)  # rungs show as they finish
     w.act_halt.trigger()
     qtbot.waitUntil(lambda: not s.running, timeout=30_000)
     assert 1 <= len(s.rungs) < s.planned

@@ -87,7 +87,7 @@ class Session:
         self.map_kind = "native"
         self.target_precision: float | None = 0.95
         self.saved_paths: list[Path] = []
-        self._data_maps: dict[str, np.ndarray] | None = None
+        self._data_maps: tuple[Prepared, dict[str, np.ndarray]] | None = None  # maps of one prepared set
 
     # ---- events -------------------------------------------------------------------------------
 
@@ -157,7 +157,6 @@ class Session:
         self._rebuild_prep()
 
     def _rebuild_prep(self) -> None:
-        self._data_maps = None
         if self.dataset is None:
             self.prep = None
             self._emit("prep")
@@ -373,9 +372,9 @@ class Session:
         if self.map_kind in ("mean_difference", "mutual_information"):
             if prep is None:
                 return None, "no data"
-            if self._data_maps is None or prep is not self.prep:
-                self._data_maps = prep.data_maps()
-            return self._data_maps[self.map_kind], MAP_KINDS[self.map_kind]
+            if self._data_maps is None or self._data_maps[0] is not prep:
+                self._data_maps = (prep, prep.data_maps())
+            return self._data_maps[1][self.map_kind], MAP_KINDS[self.map_kind]
         r = self.selected
         if r is None:
             return None, "no rung selected"

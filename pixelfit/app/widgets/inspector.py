@@ -155,7 +155,7 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self.listen(session, "rungs", self._rungs_changed)
         self.listen(session, "threshold", self._threshold_changed)
         self.listen(session, "map", self._show_map)
-        self.listen(session, "prep", self._show_map)
+        self.listen(session, "prep", self._prep_changed)
         self.listen(session, "target", self._target_changed)
         self.refresh()
 
@@ -184,6 +184,10 @@ class RungInspector(Listens, QtWidgets.QWidget):
         if self.session.selected is not None:  # marks (recommended, comparisons) may have moved
             self._title()
 
+    def _prep_changed(self) -> None:
+        self._title()
+        self._show_map()
+
     def _title(self) -> None:
         r = self.session.selected
         if r is None:
@@ -192,6 +196,9 @@ class RungInspector(Listens, QtWidgets.QWidget):
         fam = FAMILIES[r.family]
         mark = " — recommended" if r.recommended else ""
         notes = "".join(f"<br><i>{n}</i>" for n in r.notes)
+        s = self.session
+        if s.prep is not None and s.run_prep is not None and s.prep.binarizer != s.run_prep.binarizer:
+            notes += f"<br><i>trained on {s.run_prep.binarizer.describe()} bits, not the current pixel prep</i>"
         self.title.setText(f"<b>{r.key}</b>{mark}: {fam.description}, {fam.size_name} {r.size}; "
                            f"{r.figures['parameters']} parameters{notes}")
 
