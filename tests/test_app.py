@@ -284,3 +284,18 @@ def test_plain_pixelfit_opens_the_gui(monkeypatch):
     monkeypatch.setattr(pixelfit.app, "launch", lambda path=None, argv=None: seen.append(path) or 0)
     assert main([]) == 0 and main(["gui", "some/folder"]) == 0
     assert seen == [None, "some/folder"]
+
+
+def test_start_on_demo_set_or_ask_for_a_folder(qtbot, window, class_folder, tmp_path, monkeypatch):
+    from pixelfit.app import main_window
+
+    w = window
+    asked = []
+    monkeypatch.setattr(w, "choose_folder", lambda: asked.append(True))
+    monkeypatch.setattr("pixelfit.cli.resolve_dataset_path", lambda name: tmp_path / "no-demo-here")
+    main_window._open_initial(w, None)
+    qtbot.waitUntil(lambda: asked == [True], timeout=2000)
+    assert "demo set" in w.strip.text.text() and w.session.dataset is None
+    monkeypatch.setattr("pixelfit.cli.resolve_dataset_path", lambda name: class_folder)
+    main_window._open_initial(w, None)
+    assert w.session.dataset is not None and w.session.dataset.source == str(class_folder)

@@ -4,6 +4,7 @@ ladder worker's lifetime, and the application entry point."""
 from __future__ import annotations
 
 import sys
+import traceback
 from collections.abc import Callable
 from pathlib import Path
 
@@ -365,6 +366,12 @@ def run_application(path: str | None = None, argv: list[str] | None = None) -> i
     app.setApplicationName(APP_NAME)
     app.setOrganizationName(APP_NAME)
     window = MainWindow()
+
+    def report(kind, value, tb):  # a bug in a slot is shown in the window, not fatal
+        traceback.print_exception(kind, value, tb)
+        window.session.say(f"internal error ({kind.__name__}: {value}); the session goes on", True)
+
+    sys.excepthook = report
     window.show()
     QtCore.QTimer.singleShot(0, lambda: _open_initial(window, path))
     return int(app.exec())

@@ -149,13 +149,6 @@ class Session:
         self.positive = name
         self._rebuild_prep()
 
-    def set_split(self, test_fraction: float | None = None, seed: int | None = None) -> None:
-        if test_fraction is not None:
-            self.test_fraction = float(test_fraction)
-        if seed is not None:
-            self.seed = int(seed)
-        self._rebuild_prep()
-
     def _rebuild_prep(self) -> None:
         if self.dataset is None:
             self.prep = None

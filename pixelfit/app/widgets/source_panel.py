@@ -32,6 +32,7 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
         self.positive.activated.connect(self._positive_chosen)
         self.listen(session, "dataset", self.refresh)
         self.listen(session, "prep", self.refresh)
+        self.listen(session, "run", self.refresh)
         self.refresh()
 
     def _positive_chosen(self, index: int) -> None:
