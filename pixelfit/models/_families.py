@@ -239,7 +239,8 @@ def parse_families(text: str | None) -> list[str]:
     names = [t.strip() for t in text.split(",") if t.strip()]
     unknown = [n for n in names if n not in FAMILIES]
     if unknown:
-        raise TrainingError(f"unknown famil{'y' if len(unknown) == 1 else 'ies'} {', '.join(unknown)}; choose from {', '.join(FAMILY_ORDER)}")
+        word = "family" if len(unknown) == 1 else "families"
+        raise TrainingError(f"unknown {word} {', '.join(unknown)}; choose from {', '.join(FAMILY_ORDER)}")
     return [f for f in FAMILY_ORDER if f in names]
 
 
