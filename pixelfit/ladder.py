@@ -16,6 +16,7 @@ import numpy as np
 from sklearn.base import clone
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.model_selection import StratifiedKFold
+from threadpoolctl import threadpool_limits
 
 from pixelfit.data import Binarizer, Dataset, binary_target, choose_positive, fingerprint, stratified_split
 from pixelfit.errors import TrainingError
@@ -177,7 +178,8 @@ def effective_folds(y: np.ndarray, folds: int) -> tuple[int, str | None]:
     if smallest >= folds:
         return folds, None
     if smallest >= 2:
-        return smallest, f"cross-validation uses {smallest} folds, not {folds}: the smaller class has only {smallest} training patches"
+        return smallest, (f"cross-validation uses {smallest} folds, not {folds}: "
+                          f"the smaller class has only {smallest} training patches")
     return 0, f"cross-validation is off: the smaller class has only {smallest} training patch"
 
 
@@ -196,6 +198,14 @@ def _fit(est, X, y, cancel: CancelFn | None, notes: list[str] | None = None):
         if msg not in notes:
             notes.append(msg)
     return est
+
+
+def _scores_of(est, X) -> np.ndarray:
+    """Scores of a family that has them; see :func:`_score`."""
+    s = _score(est, X)
+    if s is None:
+        raise TrainingError(f"{type(est).__name__} gives no scores")
+    return s
 
 
 def _score(est, X) -> np.ndarray | None:
@@ -266,7 +276,7 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     operating = None
     if test_scores is not None:
         choose_on = "cv" if folds and oof is not None and not np.isnan(oof).any() else "train"
-        basis = oof if choose_on == "cv" else _score(est, X)
+        basis = oof if choose_on == "cv" and oof is not None else _scores_of(est, X)
         target = None
         if target_precision is not None or target_recall is not None:
             pick = threshold_for_target(operating_points(y, basis), target_precision, target_recall)
@@ -293,6 +303,13 @@ def run_ladder(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, see
     Raises :class:`LadderCancelled` between steps when ``cancel()`` returns True. Call
     :func:`conclude` on the finished rungs to mark the recommended one and the comparisons.
     """
+    # Ladder matrices are small: threads in BLAS only add overhead (and stall badly on a busy
+    # machine), so numeric libraries run single-threaded while the ladder trains.
+    with threadpool_limits(limits=1):
+        yield from _run(prep, rungs, folds, seed, cancel, target_precision, target_recall)
+
+
+def _run(prep, rungs, folds, seed, cancel, target_precision, target_recall) -> Iterator[Progress]:
     folds, note = effective_folds(prep.y_train, folds)
     per_rung = folds + 1
     total = per_rung * len(rungs)

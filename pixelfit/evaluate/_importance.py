@@ -4,8 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 from sklearn.base import BaseEstimator, ClassifierMixin
-from sklearn.feature_selection import mutual_info_classif
 from sklearn.inspection import permutation_importance
+
+from pixelfit.models._families import pixel_mutual_information
 
 
 class _OnPixels(ClassifierMixin, BaseEstimator):
@@ -56,6 +57,4 @@ def mean_difference_map(X: np.ndarray, y: np.ndarray, shape: tuple[int, int]) ->
 
 def mutual_information_map(X: np.ndarray, y: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
     """Mutual information (nats) between each binary pixel and the label."""
-    mi = mutual_info_classif(np.asarray(X, dtype=np.int8), np.asarray(y, bool), discrete_features=True,
-                             random_state=0)
-    return mi.reshape(shape)
+    return pixel_mutual_information(X, np.asarray(y, bool)).reshape(shape)

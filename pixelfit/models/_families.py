@@ -7,11 +7,12 @@ its own importance map is) lives here too, so the ladder treats all families ali
 
 from __future__ import annotations
 
+import hashlib
 import math
 import warnings
+from collections import OrderedDict
 from collections.abc import Callable
 from dataclasses import dataclass
-from functools import partial
 
 import numpy as np
 from sklearn.base import BaseEstimator, ClassifierMixin
@@ -23,7 +24,8 @@ from sklearn.neural_network import MLPClassifier
 from sklearn.pipeline import Pipeline
 from sklearn.svm import l1_min_c
 from sklearn.tree import DecisionTreeClassifier
-from sklearn.utils.validation import check_is_fitted
+from sklearn.utils.multiclass import check_classification_targets
+from sklearn.utils.validation import check_is_fitted, validate_data
 
 from pixelfit._numeric import linear_decision, sigmoid
 from pixelfit.errors import TrainingError
@@ -38,6 +40,9 @@ from pixelfit.evaluate._bounds import (
 from pixelfit.models._rules import ConstantRule, LutRule, MemorizeRule
 
 FAMILY_ORDER = ("constant", "lut", "nb", "logistic", "tree", "mlp", "memorize")
+
+
+_L1_CACHE: OrderedDict[tuple[bytes, float], np.ndarray] = OrderedDict()
 
 
 class SparseLogistic(ClassifierMixin, BaseEstimator):
@@ -66,22 +71,32 @@ class SparseLogistic(ClassifierMixin, BaseEstimator):
         self.max_steps = max_steps
 
     @staticmethod
-    def _l1(X, y, C):
+    def _l1(X, y, C, data_key: bytes):
+        # Rungs of several sizes bisect over the same C values on the same folds: reuse the fits.
+        key = (data_key, C)
+        hit = _L1_CACHE.get(key)
+        if hit is not None:
+            return hit
         # A large intercept_scaling keeps liblinear from penalising the intercept.
         m = LogisticRegression(l1_ratio=1.0, solver="liblinear", C=C, max_iter=1000, random_state=0,
                                intercept_scaling=100.0)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", ConvergenceWarning)
             m.fit(X, y)
-        return np.flatnonzero(m.coef_.ravel())
+        support = np.flatnonzero(m.coef_.ravel())
+        _L1_CACHE[key] = support
+        while len(_L1_CACHE) > 4096:
+            _L1_CACHE.popitem(last=False)
+        return support
 
     def _support(self, X, y, k: int) -> tuple[np.ndarray, float]:
         lo = l1_min_c(X, y, loss="log") if X.any() else 1.0
         log_lo, log_hi = math.log(lo), math.log(lo * 1e6)
         best: tuple[np.ndarray, float] | None = None
+        data_key = _digest(X, y)
         for _ in range(self.max_steps):
             mid = (log_lo + log_hi) / 2
-            sup = self._l1(X, y, math.exp(mid))
+            sup = self._l1(X, y, math.exp(mid), data_key)
             if len(sup) <= k and (best is None or len(sup) > len(best[0])):
                 best = (sup, math.exp(mid))
             if len(sup) == k:
@@ -98,15 +113,16 @@ class SparseLogistic(ClassifierMixin, BaseEstimator):
         return best
 
     def fit(self, X, y):
-        X = np.asarray(X, dtype=np.float64)
-        y = np.asarray(y)
+        X, y = validate_data(self, X, y, dtype=np.float64)
+        check_classification_targets(y)
         k = int(self.k)
         p = X.shape[1]
         if k < 1:
             raise TrainingError(f"logistic size k={k} must be at least 1")
         self.classes_ = np.unique(y)
         if len(self.classes_) != 2:
-            raise TrainingError("logistic regression needs both classes in the training data")
+            raise ValueError(f"Only binary classification is supported: SparseLogistic needs samples of 2 classes, "
+                             f"got {len(self.classes_)} class(es).")
         if k >= p:
             support, c = np.arange(p), math.inf
         else:
@@ -122,15 +138,21 @@ class SparseLogistic(ClassifierMixin, BaseEstimator):
         self.intercept_ = np.asarray(refit.intercept_, dtype=np.float64)
         self.C_ = c
         self.n_nonzero_ = int(np.count_nonzero(coef))
-        self.n_features_in_ = p
         return self
 
     def decision_function(self, X):
         check_is_fitted(self, "coef_")
+        X = validate_data(self, X, dtype=np.float64, reset=False)
         return linear_decision(X, self.coef_, float(self.intercept_[0]))
 
+    def __sklearn_tags__(self):
+        tags = super().__sklearn_tags__()
+        tags.classifier_tags.multi_class = False
+        return tags
+
     def predict(self, X):
-        return self.classes_[(self.decision_function(X) > 0).astype(np.intp)]
+        positive = self.decision_function(X) > 0
+        return self.classes_[positive.astype(np.intp)]
 
     def predict_proba(self, X):
         s = sigmoid(self.decision_function(X))
@@ -165,9 +187,36 @@ class Family:
     fixed_size: bool = False
 
 
+def _digest(*arrays) -> bytes:
+    h = hashlib.blake2b(digest_size=16)
+    for a in arrays:
+        a = np.ascontiguousarray(a)
+        h.update(repr((a.shape, a.dtype.str)).encode())
+        h.update(a.tobytes())
+    return h.digest()
+
+
+_MI_CACHE: OrderedDict[bytes, np.ndarray] = OrderedDict()
+
+
+def pixel_mutual_information(X, y) -> np.ndarray:
+    """Mutual information of each binary pixel with the label (scikit-learn's discrete estimate).
+
+    Every nb rung of a ladder ranks pixels on the same training folds; the scores are computed
+    once per distinct (X, y) and reused.
+    """
+    key = _digest(X, y)
+    hit = _MI_CACHE.get(key)
+    if hit is None:
+        hit = mutual_info_classif(np.asarray(X, dtype=np.int8), y, discrete_features=True, random_state=0)
+        _MI_CACHE[key] = hit
+        while len(_MI_CACHE) > 32:
+            _MI_CACHE.popitem(last=False)
+    return hit.copy()
+
+
 def _make_nb(k, p, seed):
-    mi = partial(mutual_info_classif, discrete_features=True, random_state=seed)
-    return Pipeline([("select", SelectKBest(mi, k=min(k, p))), ("nb", BernoulliNB(alpha=1.0))])
+    return Pipeline([("select", SelectKBest(pixel_mutual_information, k=min(k, p))), ("nb", BernoulliNB(alpha=1.0))])
 
 
 FAMILIES: dict[str, Family] = {
@@ -198,7 +247,8 @@ def parse_families(text: str | None) -> list[str]:
     names = [t.strip() for t in text.split(",") if t.strip()]
     unknown = [n for n in names if n not in FAMILIES]
     if unknown:
-        raise TrainingError(f"unknown famil{'y' if len(unknown) == 1 else 'ies'} {', '.join(unknown)}; choose from {', '.join(FAMILY_ORDER)}")
+        word = "family" if len(unknown) == 1 else "families"
+        raise TrainingError(f"unknown {word} {', '.join(unknown)}; choose from {', '.join(FAMILY_ORDER)}")
     return [f for f in FAMILY_ORDER if f in names]
 
 
