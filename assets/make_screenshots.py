@@ -46,7 +46,8 @@ def main() -> int:
         for _ in range(5):
             app.processEvents()
         w.grab().save(str(HERE / "main-window.png"))
-        print(f"{len(s.rungs)} rungs; selected {s.selected.key if s.selected else None}; wrote {HERE}/main-window.png, patches.png")
+        chosen = s.selected.key if s.selected else None
+        print(f"{len(s.rungs)} rungs; selected {chosen}; wrote {HERE}/main-window.png, patches.png")
         w.close()
     return 0
 

@@ -8,13 +8,13 @@ import numpy as np
 import pytest
 
 pytest.importorskip("pytestqt")
+from conftest import make_patches, write_class_folders  # noqa: E402
+
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets  # noqa: E402  (before any widget is built)
 from pixelfit.app.main_window import RECENT_KEY, MainWindow  # noqa: E402
 from pixelfit.app.widgets.inspector import SLIDER_STEPS, PixelMap  # noqa: E402
 from pixelfit.evaluate import detection_metrics  # noqa: E402
 from pixelfit.rulefile import load_rule  # noqa: E402
-
-from conftest import make_patches, write_class_folders  # noqa: E402
 
 SMALL = dict(families=["constant", "lut", "tree"], max_size=2, folds=2)
 
@@ -63,12 +63,12 @@ def climb(qtbot, w: MainWindow, **settings) -> None:
     qtbot.waitUntil(lambda: not w.session.running, timeout=60_000)
 
 
-def test_core_imports_without_qt():
+def test_session_model_imports_without_qt():
+    """The window's state lives in a plain-Python model (tests/test_layering.py covers the core)."""
     import subprocess
     import sys
 
-    code = ("import sys, pixelfit, pixelfit.cli, pixelfit.ladder, pixelfit.report, pixelfit.rulefile, "
-            "pixelfit.app, pixelfit.app.session; "
+    code = ("import sys, pixelfit.app, pixelfit.app.session; "
             "bad = [m for m in ('PySide6', 'pyqtgraph') if m in sys.modules]; print(bad); sys.exit(1 if bad else 0)")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     assert out.returncode == 0, out.stdout + out.stderr

@@ -9,9 +9,8 @@ import sys
 # pyqtgraph picks the first Qt binding it can import unless told; pin it before it is imported.
 os.environ.setdefault("PYQTGRAPH_QT_LIB", "PySide6")
 
-from PySide6 import QtCore, QtGui, QtWidgets  # noqa: E402
-
 import pyqtgraph as pg  # noqa: E402
+from PySide6 import QtCore, QtGui, QtWidgets  # noqa: E402
 
 # Images are (row, col) arrays everywhere in pixelfit; every ImageItem also sets it explicitly.
 pg.setConfigOptions(imageAxisOrder="row-major", antialias=True, background="w", foreground="k")

@@ -304,8 +304,9 @@ class Session:
             return
         self.selected = rung
         self.threshold = 0.5
-        if rung is not None and rung.operating and rung.operating.get("target") and rung.operating["target"].get("threshold") is not None:
-            self.threshold = float(rung.operating["target"]["threshold"])
+        target = (rung.operating or {}).get("target") if rung is not None else None
+        if target and target.get("threshold") is not None:  # the threshold the ladder chose for a target
+            self.threshold = float(target["threshold"])
         self._emit("selection")
 
     def set_threshold(self, value: float) -> None:

@@ -28,8 +28,8 @@ class PatchListModel(QtCore.QAbstractListModel):
         self._cache.clear()
         self.endResetModel()
 
-    def rowCount(self, parent=QtCore.QModelIndex()) -> int:
-        return 0 if parent.isValid() else len(self.rows)
+    def rowCount(self, parent=None) -> int:
+        return 0 if parent is not None and parent.isValid() else len(self.rows)
 
     def data(self, index, role=Role.DisplayRole):
         if not index.isValid() or self.session.dataset is None:

@@ -4,8 +4,6 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
-
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
 from pixelfit.app.session import Session
 from pixelfit.app.widgets import Listens
@@ -70,11 +68,11 @@ class LadderTableModel(QtCore.QAbstractTableModel):
         self.beginResetModel()
         self.endResetModel()
 
-    def rowCount(self, parent=QtCore.QModelIndex()) -> int:
-        return 0 if parent.isValid() else len(self.session.rungs)
+    def rowCount(self, parent=None) -> int:
+        return 0 if parent is not None and parent.isValid() else len(self.session.rungs)
 
-    def columnCount(self, parent=QtCore.QModelIndex()) -> int:
-        return 0 if parent.isValid() else len(COLUMNS)
+    def columnCount(self, parent=None) -> int:
+        return 0 if parent is not None and parent.isValid() else len(COLUMNS)
 
     def headerData(self, section, orientation, role=Role.DisplayRole):
         if orientation == QtCore.Qt.Orientation.Horizontal:

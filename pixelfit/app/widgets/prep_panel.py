@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from pixelfit.app._qt import QtCore, QtWidgets, pg
+from pixelfit.app._qt import QtWidgets, pg
 from pixelfit.app.session import Session
 from pixelfit.app.widgets import Listens
 
