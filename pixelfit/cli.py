@@ -402,15 +402,30 @@ def build_parser() -> argparse.ArgumentParser:
                    "generated patches)")
     e.add_argument("--max-vectors", type=int, default=256, help="most test vectors taken from --vectors-from (256)")
     e.set_defaults(func=cmd_export)
+    g = sub.add_parser("gui", help="open the desktop application",
+                       description="Open the desktop application on a folder, .npz file or demo set "
+                       "(default: the bundled bottle-caps set when present).")
+    g.add_argument("path", nargs="?", help="folder of patches, .npz file, or a demo set name")
+    g.set_defaults(func=cmd_gui)
     return p
+
+
+def cmd_gui(args) -> int:
+    import importlib.util
+
+    missing = [m for m in ("PySide6", "pyqtgraph") if importlib.util.find_spec(m) is None]
+    if missing:
+        raise PixelfitError(f"the desktop application needs {' and '.join(missing)}; install pixelfit with its dependencies")
+    from pixelfit.app import launch  # Qt is imported only from here on
+
+    return launch(args.path)
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
-    if args.command is None:
-        parser.print_help()
-        return EXIT_OK
+    if args.command is None:  # plain `pixelfit` opens the desktop application on the demo set
+        args = parser.parse_args(["gui"])
     try:
         return int(args.func(args))
     except PixelfitError as exc:

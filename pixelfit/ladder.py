@@ -178,7 +178,8 @@ def effective_folds(y: np.ndarray, folds: int) -> tuple[int, str | None]:
     if smallest >= folds:
         return folds, None
     if smallest >= 2:
-        return smallest, f"cross-validation uses {smallest} folds, not {folds}: the smaller class has only {smallest} training patches"
+        return smallest, (f"cross-validation uses {smallest} folds, not {folds}: "
+                          f"the smaller class has only {smallest} training patches")
     return 0, f"cross-validation is off: the smaller class has only {smallest} training patch"
 
 
@@ -209,6 +210,14 @@ def _fit(est, X, y, cancel: CancelFn | None, notes: list[str] | None = None):
         if msg not in notes:
             notes.append(msg)
     return est
+
+
+def _scores_of(est, X) -> np.ndarray:
+    """Scores of a family that has them; see :func:`_score`."""
+    s = _score(est, X)
+    if s is None:
+        raise TrainingError(f"{type(est).__name__} gives no scores")
+    return s
 
 
 def _score(est, X) -> np.ndarray | None:
@@ -279,7 +288,7 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     operating = None
     if test_scores is not None:
         choose_on = "cv" if folds and oof is not None and not np.isnan(oof).any() else "train"
-        basis = oof if choose_on == "cv" else _score(est, X)
+        basis = oof if choose_on == "cv" and oof is not None else _scores_of(est, X)
         target = None
         if target_precision is not None or target_recall is not None:
             pick = threshold_for_target(operating_points(y, basis), target_precision, target_recall)

@@ -34,7 +34,27 @@ def heatmap_png(values: np.ndarray, scale: int = 24) -> bytes:
     return buf.getvalue()
 
 
-def ladder_png(curves: dict[str, dict[str, list[tuple[float, float]]]], size_names: dict[str, str],
+def _x_axis(x0: float, x1: float, lo: float, hi: float, log_x: bool):
+    """Map a size to a pixel column (log2 axis when sizes span a wide range)."""
+    span = hi - lo
+
+    def px(s: float) -> float:
+        x = float(np.log2(s)) if log_x else float(s)
+        return x0 + (x1 - x0) * ((x - lo) / span if span > 0 else 0.5)
+
+    return px
+
+
+def _y_axis(top: float, bottom: float):
+    """Map an error rate in [0, 1] to a pixel row."""
+
+    def py(e: float) -> float:
+        return bottom - (bottom - top) * min(1.0, max(0.0, e))
+
+    return py
+
+
+def ladder_png(curves: dict[str, dict[str, list[tuple[float, float | None]]]], size_names: dict[str, str],
                recommended: tuple[str, int] | None = None) -> bytes:
     """PNG bytes of the bias-variance plot: one panel per family, error rate against size.
 
@@ -64,14 +84,9 @@ def ladder_png(curves: dict[str, dict[str, list[tuple[float, float]]]], size_nam
         log_x = len(sizes) > 2 and sizes[0] > 0 and sizes[-1] / sizes[0] > 8
         xs = np.log2(sizes) if log_x else np.asarray(sizes, float)
         lo, hi = float(xs.min()), float(xs.max())
-        span = hi - lo or 1.0
 
-        def px(s: float) -> float:
-            x = np.log2(s) if log_x else s
-            return left + 6 + (right - left - 12) * ((x - lo) / span if hi > lo else 0.5)
-
-        def py(e: float) -> float:
-            return bottom - (bottom - top) * min(1.0, max(0.0, e))
+        px = _x_axis(left + 6, right - 6, lo, hi, log_x)
+        py = _y_axis(top, bottom)
 
         for e in (0.0, 0.25, 0.5, 0.75, 1.0):
             d.line([(left, py(e)), (right, py(e))], fill=(235, 235, 235))

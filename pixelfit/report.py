@@ -50,7 +50,7 @@ def build_summary(prep: Prepared, rungs: list[Rung], recommended: Rung | None, s
         "format": SUMMARY_FORMAT,
         "version": SUMMARY_VERSION,
         "pixelfit_version": __version__,
-        "created": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+        "created": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
         "dataset": dataset_summary(prep),
         "binarize": prep.binarizer.to_dict(),
         "split": split_summary(prep),

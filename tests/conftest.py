@@ -1,9 +1,8 @@
 """Shared fixtures: a fixed seed and small generated patch folders in every layout."""
 from __future__ import annotations
 
-import os
-
 import csv
+import os
 from pathlib import Path
 
 import numpy as np

@@ -64,8 +64,10 @@ def _rung(summary: dict, family: str, size: int) -> dict:
 
 
 def _split_arrays(run) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Grey patches (n, 8, 8), bits (n, 64), targets (n,) and held-out mask (n,) rebuilt from split.csv and the PNG files, binarized with
-    the threshold recorded in summary.json (pixel is 1 when value > t)."""
+    """Grey patches (n, 8, 8), bits (n, 64), targets (n,) and held-out mask (n,).
+
+    Rebuilt from split.csv and the PNG files, binarized with the threshold recorded in summary.json
+    (pixel is 1 when value > t)."""
     s = run["summary"]
     gray = np.stack([np.asarray(Image.open(run["root"] / r["path"])) for r in run["rows"]])
     X = gray.reshape(len(gray), -1) > s["binarize"]["threshold"]

@@ -38,12 +38,12 @@ def one_standard_error_choice(cv_means: list[float | None], cv_sds: list[float |
     The standard error is the best rung's fold standard deviation / sqrt(folds). Among rungs
     within reach the one of least ``complexity`` wins, ties to the earlier rung.
     """
-    idx = [i for i, m in enumerate(cv_means) if m is not None and not math.isnan(m)]
-    if not idx or folds < 2:
+    means = {i: float(m) for i, m in enumerate(cv_means) if m is not None and not math.isnan(m)}
+    if not means or folds < 2:
         return None
-    best = max(idx, key=lambda i: (cv_means[i], -complexity[i]))
+    best = max(means, key=lambda i: (means[i], -complexity[i]))
     se = (cv_sds[best] or 0.0) / math.sqrt(folds)
-    within = [i for i in idx if cv_means[i] >= cv_means[best] - se]
+    within = [i for i in means if means[i] >= means[best] - se]
     return min(within, key=lambda i: (complexity[i], i))
 
 

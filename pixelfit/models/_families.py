@@ -24,7 +24,8 @@ from sklearn.neural_network import MLPClassifier
 from sklearn.pipeline import Pipeline
 from sklearn.svm import l1_min_c
 from sklearn.tree import DecisionTreeClassifier
-from sklearn.utils.validation import check_is_fitted
+from sklearn.utils.multiclass import check_classification_targets
+from sklearn.utils.validation import check_is_fitted, validate_data
 
 from pixelfit._numeric import linear_decision, sigmoid
 from pixelfit.errors import TrainingError
@@ -112,15 +113,16 @@ class SparseLogistic(ClassifierMixin, BaseEstimator):
         return best
 
     def fit(self, X, y):
-        X = np.asarray(X, dtype=np.float64)
-        y = np.asarray(y)
+        X, y = validate_data(self, X, y, dtype=np.float64)
+        check_classification_targets(y)
         k = int(self.k)
         p = X.shape[1]
         if k < 1:
             raise TrainingError(f"logistic size k={k} must be at least 1")
         self.classes_ = np.unique(y)
         if len(self.classes_) != 2:
-            raise TrainingError("logistic regression needs both classes in the training data")
+            raise ValueError(f"Only binary classification is supported: SparseLogistic needs samples of 2 classes, "
+                             f"got {len(self.classes_)} class(es).")
         if k >= p:
             support, c = np.arange(p), math.inf
         else:
@@ -136,15 +138,21 @@ class SparseLogistic(ClassifierMixin, BaseEstimator):
         self.intercept_ = np.asarray(refit.intercept_, dtype=np.float64)
         self.C_ = c
         self.n_nonzero_ = int(np.count_nonzero(coef))
-        self.n_features_in_ = p
         return self
 
     def decision_function(self, X):
         check_is_fitted(self, "coef_")
+        X = validate_data(self, X, dtype=np.float64, reset=False)
         return linear_decision(X, self.coef_, float(self.intercept_[0]))
 
+    def __sklearn_tags__(self):
+        tags = super().__sklearn_tags__()
+        tags.classifier_tags.multi_class = False
+        return tags
+
     def predict(self, X):
-        return self.classes_[(self.decision_function(X) > 0).astype(np.intp)]
+        positive = self.decision_function(X) > 0
+        return self.classes_[positive.astype(np.intp)]
 
     def predict_proba(self, X):
         s = sigmoid(self.decision_function(X))
@@ -239,7 +247,8 @@ def parse_families(text: str | None) -> list[str]:
     names = [t.strip() for t in text.split(",") if t.strip()]
     unknown = [n for n in names if n not in FAMILIES]
     if unknown:
-        raise TrainingError(f"unknown famil{'y' if len(unknown) == 1 else 'ies'} {', '.join(unknown)}; choose from {', '.join(FAMILY_ORDER)}")
+        word = "family" if len(unknown) == 1 else "families"
+        raise TrainingError(f"unknown {word} {', '.join(unknown)}; choose from {', '.join(FAMILY_ORDER)}")
     return [f for f in FAMILY_ORDER if f in names]
 
 

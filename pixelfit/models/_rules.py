@@ -1,6 +1,7 @@
 """pixelfit's own rules, as scikit-learn classifiers: constant, k-pixel truth table, memorize.
 
-All three take ``X`` of shape (n_patches, n_pixels) with 0/1 (or bool) values and a binary ``y``.
+All three take ``X`` of shape (n_patches, n_pixels) of binarized pixels and a binary ``y``. Any
+non-zero value counts as a lit pixel, as in the C export.
 """
 
 from __future__ import annotations
@@ -30,11 +31,12 @@ class _BinaryRule(ClassifierMixin, BaseEstimator):
     """Shared input checks: binary targets; the positive class is ``classes_[1]``."""
 
     def _check_fit(self, X, y):
-        X, y = validate_data(self, X, y, dtype=None, ensure_min_samples=1)
+        X, y = validate_data(self, X, y, ensure_min_samples=1)
         check_classification_targets(y)
         self.classes_ = np.unique(y)
         if len(self.classes_) > 2:
-            raise ValueError(f"{type(self).__name__} is a binary classifier; got {len(self.classes_)} classes")
+            raise ValueError(f"Only binary classification is supported. The type of the target is multiclass "
+                             f"({len(self.classes_)} classes).")
         if len(self.classes_) == 1:
             # One class seen: everything is predicted as that class.
             yb = np.zeros(len(y), bool)
@@ -44,7 +46,7 @@ class _BinaryRule(ClassifierMixin, BaseEstimator):
 
     def _check_predict(self, X):
         check_is_fitted(self, "classes_")
-        X = validate_data(self, X, dtype=None, reset=False)
+        X = validate_data(self, X, reset=False)
         return _as_bits(X)
 
     def _label(self, positive: np.ndarray) -> np.ndarray:
@@ -71,11 +73,7 @@ class _BinaryRule(ClassifierMixin, BaseEstimator):
 
 def _as_bits(X) -> np.ndarray:
     X = np.asarray(X)
-    if X.dtype != bool:
-        if X.size and not np.isin(X, (0, 1)).all():
-            raise ValueError("pixel values must be 0 or 1 (binarize the patches first)")
-        X = X.astype(bool)
-    return X
+    return X if X.dtype == bool else X != 0
 
 
 def _majority(n_pos: float, n_neg: float) -> bool:

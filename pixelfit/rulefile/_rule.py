@@ -11,6 +11,7 @@ import datetime as _dt
 import json
 import math
 import os
+from collections.abc import Callable
 from importlib import resources
 from pathlib import Path
 
@@ -56,7 +57,7 @@ def _validator():
 # building a document from a trained rung
 
 
-def _rc(i: int, w: int) -> list[int]:
+def _rc(i, w: int) -> list[int]:
     return [int(i) // w, int(i) % w]
 
 
@@ -123,7 +124,7 @@ def rule_document(prep, rung) -> dict:
     return {
         "format": RULE_FORMAT,
         "schema_version": RULE_VERSION,
-        "created": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+        "created": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
         "pixelfit_version": __version__,
         "patch_shape": list(prep.shape),
         "classes": {"positive": prep.positive, "negative": prep.negative},
@@ -466,7 +467,7 @@ class Rule:
         return None
 
 
-_ACTIVATIONS = {
+_ACTIVATIONS: dict[str, Callable[[np.ndarray], np.ndarray]] = {
     "relu": lambda a: np.maximum(a, 0),
     "tanh": np.tanh,
     "logistic": sigmoid,

@@ -1,0 +1,17 @@
+"""The desktop application: the only package of pixelfit that imports PySide6 and pyqtgraph.
+
+Importing ``pixelfit.app`` itself loads no Qt; :func:`launch` does, so the CLI and the core run on
+machines without a display or without Qt installed.
+"""
+
+from __future__ import annotations
+
+
+def launch(path: str | None = None, argv: list[str] | None = None) -> int:
+    """Open the main window (on ``path`` when given) and run the event loop; returns its exit code."""
+    from pixelfit.app.main_window import run_application
+
+    return run_application(path, argv)
+
+
+__all__ = ["launch"]

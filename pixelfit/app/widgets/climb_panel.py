@@ -1,0 +1,99 @@
+"""Climb settings: which families, how large, how many folds; the climb and halt buttons."""
+
+from __future__ import annotations
+
+from pixelfit.app._qt import QtCore, QtWidgets
+from pixelfit.app.session import Session, family_names
+from pixelfit.app.widgets import Listens
+from pixelfit.errors import PixelfitError
+
+
+class ClimbPanel(Listens, QtWidgets.QGroupBox):
+    """The ladder settings and the run controls; the buttons trigger the window's actions."""
+
+    def __init__(self, session: Session, climb_action, halt_action, parent: QtWidgets.QWidget | None = None):
+        super().__init__("Climb", parent)
+        self.session = session
+        self.checks: dict[str, QtWidgets.QCheckBox] = {}
+        grid = QtWidgets.QGridLayout()
+        for i, (name, desc) in enumerate(family_names()):
+            cb = QtWidgets.QCheckBox(name)
+            cb.setToolTip(desc)
+            cb.toggled.connect(self._write_back)
+            self.checks[name] = cb
+            grid.addWidget(cb, i // 3, i % 3)
+        self.max_size = QtWidgets.QSpinBox()
+        self.max_size.setRange(0, 4096)
+        self.max_size.setSpecialValueText("no cap")
+        self.max_size.setToolTip("Largest size on every family's axis (pixels, depth or hidden units)")
+        self.folds = QtWidgets.QSpinBox()
+        self.folds.setRange(0, 20)
+        self.folds.setSpecialValueText("off")
+        self.folds.setToolTip("Cross-validation folds on the training part (needed for the recommendation)")
+        self.max_size.valueChanged.connect(self._write_back)
+        self.folds.valueChanged.connect(self._write_back)
+        self.plan_label = QtWidgets.QLabel("")
+        self.plan_label.setWordWrap(True)
+        climb = QtWidgets.QToolButton()
+        climb.setDefaultAction(climb_action)
+        halt = QtWidgets.QToolButton()
+        halt.setDefaultAction(halt_action)
+        for b in (climb, halt):
+            b.setToolButtonStyle(QtCore.Qt.ToolButtonStyle.ToolButtonTextBesideIcon)
+            b.setSizePolicy(QtWidgets.QSizePolicy.Policy.Expanding, QtWidgets.QSizePolicy.Policy.Fixed)
+        self.bar = QtWidgets.QProgressBar()
+        self.bar.setTextVisible(True)
+        self.step = QtWidgets.QLabel("")
+        form = QtWidgets.QFormLayout(self)
+        form.addRow(grid)
+        form.addRow("largest size", self.max_size)
+        form.addRow("folds", self.folds)
+        form.addRow(self.plan_label)
+        buttons = QtWidgets.QHBoxLayout()
+        buttons.addWidget(climb)
+        buttons.addWidget(halt)
+        form.addRow(buttons)
+        form.addRow(self.bar)
+        form.addRow(self.step)
+        self.listen(session, "settings", self.refresh)
+        self.listen(session, "prep", self.refresh)
+        self.listen(session, "run", self.refresh)
+        self.listen(session, "progress", self._progress)
+        self.refresh()
+
+    def _write_back(self, *_):
+        s = self.session
+        s.set_ladder(families=[n for n, cb in self.checks.items() if cb.isChecked()],
+                     max_size=self.max_size.value() or None, folds=self.folds.value())
+
+    def refresh(self) -> None:
+        s = self.session
+        for name, cb in self.checks.items():
+            cb.blockSignals(True)
+            cb.setChecked(name in s.families)
+            cb.setEnabled(not s.running)
+            cb.blockSignals(False)
+        for spin, value in ((self.max_size, s.max_size or 0), (self.folds, s.folds)):
+            spin.blockSignals(True)
+            spin.setValue(value)
+            spin.setEnabled(not s.running)
+            spin.blockSignals(False)
+        if not s.running:
+            try:
+                n = len(s.plan())
+                self.plan_label.setText(f"{n} rung{'s' if n != 1 else ''} to train")
+            except PixelfitError as exc:
+                self.plan_label.setText(str(exc))
+        if s.running:
+            self.bar.setRange(0, 0)  # busy until the first step reports the total
+        elif self.bar.maximum() == 0:
+            self.bar.setRange(0, 1)
+            self.bar.setValue(0)
+
+    def _progress(self) -> None:
+        done, total, message = self.session.progress_state
+        if total:
+            self.bar.setRange(0, total)
+            self.bar.setValue(done)
+        self.step.setText(message)
+

@@ -1,0 +1,313 @@
+"""The rung inspector: per-pixel map, precision/recall at a movable threshold, confusion, misses."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from pixelfit.app._qt import QtCore, QtWidgets, pg
+from pixelfit.app.images import enlarged_pixmap, signed_colormap, symmetric_levels
+from pixelfit.app.session import MAP_KINDS, Session
+from pixelfit.app.widgets import Listens
+from pixelfit.models import FAMILIES
+
+#: Thumbnails of misses shown per kind; the count says how many there are in all.
+MAX_MISSES = 48
+SLIDER_STEPS = 1000
+
+
+def _pct(v) -> str:
+    return "–" if v is None else f"{v:.3f}"
+
+
+def _ci(ci) -> str:
+    return "" if not ci else f" [{ci[0]:.2f}, {ci[1]:.2f}]"
+
+
+class PixelMap(pg.GraphicsLayoutWidget):
+    """One (h, w) map drawn row-major (row 0 at the top) with a colour bar; pixels a rule reads
+    are outlined."""
+
+    def __init__(self, parent: QtWidgets.QWidget | None = None):
+        super().__init__(parent)
+        self.plot = self.addPlot()
+        self.plot.setMenuEnabled(False)
+        self.plot.hideButtons()
+        self.plot.setAspectLocked(True)
+        self.plot.invertY(True)
+        self.plot.getAxis("bottom").setLabel("column")
+        self.plot.getAxis("left").setLabel("row")
+        for side in ("bottom", "left"):
+            self.plot.getAxis(side).enableAutoSIPrefix(False)
+        self.image = pg.ImageItem(axisOrder="row-major")
+        self.plot.addItem(self.image)
+        self.outline = pg.ScatterPlotItem(symbol="s", brush=None, pen=pg.mkPen((0, 0, 0), width=1.5), pxMode=False)
+        self.plot.addItem(self.outline)
+        self.bar = pg.ColorBarItem(colorMap=signed_colormap(), interactive=False, width=14)
+        self.bar.setImageItem(self.image, insert_in=self.plot)
+        self.values: np.ndarray | None = None
+
+    def show_map(self, values: np.ndarray | None, pixels: list[int] | None = None) -> None:
+        if values is None:
+            self.values = None
+            self.image.clear()
+            self.outline.setData([])
+            return
+        # float32 with explicit levels: boolean and all-zero maps break automatic levels.
+        self.values = np.ascontiguousarray(values, dtype=np.float32)
+        lo, hi = symmetric_levels(self.values)
+        self.image.setImage(self.values, autoLevels=False, levels=(lo, hi))
+        self.bar.setLevels((lo, hi))
+        h, w = self.values.shape
+        self.image.setRect(QtCore.QRectF(0, 0, w, h))
+        if pixels and len(pixels) <= 256:
+            rc = np.array([(p // w, p % w) for p in pixels], np.float64)
+            self.outline.setData(x=rc[:, 1] + 0.5, y=rc[:, 0] + 0.5, size=0.92)
+        else:
+            self.outline.setData([])
+        self.plot.setRange(xRange=(0, w), yRange=(0, h), padding=0.02)
+
+
+class RungInspector(Listens, QtWidgets.QWidget):
+    """Everything about the selected rung."""
+
+    def __init__(self, session: Session, parent: QtWidgets.QWidget | None = None):
+        super().__init__(parent)
+        self.session = session
+        self.title = QtWidgets.QLabel("Select a rung in the ladder.")
+        self.title.setWordWrap(True)
+        self.kind = QtWidgets.QComboBox()
+        for k, label in MAP_KINDS.items():
+            self.kind.addItem(label, k)
+        self.map_caption = QtWidgets.QLabel("")
+        self.pixmap = PixelMap()
+        self.pixmap.setMinimumSize(220, 220)
+
+        self.pr_table = QtWidgets.QTableWidget(4, 3)
+        self.pr_table.setHorizontalHeaderLabels(["precision [95 % CI]", "recall [95 % CI]", "F1"])
+        self.pr_table.setVerticalHeaderLabels(["train", "CV (mean)", "held-out", "held-out @ threshold"])
+        self._fix_table(self.pr_table)
+        self.confusion = QtWidgets.QTableWidget(2, 2)
+        self.confusion.setHorizontalHeaderLabels(["predicted +", "predicted −"])
+        self.confusion.setVerticalHeaderLabels(["actual +", "actual −"])
+        self._fix_table(self.confusion)
+
+        self.slider = QtWidgets.QSlider(QtCore.Qt.Orientation.Horizontal)
+        self.slider.setRange(0, SLIDER_STEPS)
+        self.slider_value = QtWidgets.QDoubleSpinBox()
+        self.slider_value.setRange(0.0, 1.0)
+        self.slider_value.setDecimals(3)
+        self.slider_value.setSingleStep(0.01)
+        self.target = QtWidgets.QDoubleSpinBox()
+        self.target.setRange(0.0, 1.0)
+        self.target.setDecimals(2)
+        self.target.setSingleStep(0.01)
+        self.target.setSpecialValueText("off")
+        self.target_label = QtWidgets.QLabel("")
+        self.target_label.setWordWrap(True)
+        self.go_target = QtWidgets.QPushButton("move there")
+        self.go_target.setToolTip("Set the threshold to the held-out point that meets the target precision")
+
+        self.fp_label = QtWidgets.QLabel("")
+        self.fn_label = QtWidgets.QLabel("")
+        self.fp_list = self._thumb_list()
+        self.fn_list = self._thumb_list()
+
+        top = QtWidgets.QHBoxLayout()
+        top.addWidget(self.title, 1)
+        top.addWidget(QtWidgets.QLabel("map"))
+        top.addWidget(self.kind)
+        side = QtWidgets.QVBoxLayout()
+        side.addWidget(QtWidgets.QLabel("held-out confusion at the threshold"))
+        side.addWidget(self.confusion)
+        side.addStretch(1)
+        mid = QtWidgets.QHBoxLayout()
+        mid.addWidget(self.pixmap, 3)
+        mid.addLayout(side, 2)
+        thr = QtWidgets.QGridLayout()
+        thr.addWidget(QtWidgets.QLabel("score threshold"), 0, 0)
+        thr.addWidget(self.slider, 0, 1, 1, 2)
+        thr.addWidget(self.slider_value, 0, 3)
+        thr.addWidget(QtWidgets.QLabel("target precision"), 1, 0)
+        thr.addWidget(self.target, 1, 1)
+        thr.addWidget(self.go_target, 1, 2)
+        thr.addWidget(self.target_label, 2, 0, 1, 4)
+        thr.setColumnStretch(2, 1)
+        misses = QtWidgets.QGridLayout()
+        misses.addWidget(self.fp_label, 0, 0)
+        misses.addWidget(self.fn_label, 0, 1)
+        misses.addWidget(self.fp_list, 1, 0)
+        misses.addWidget(self.fn_list, 1, 1)
+        lay = QtWidgets.QVBoxLayout(self)
+        lay.setContentsMargins(4, 4, 4, 4)
+        lay.addLayout(top)
+        lay.addLayout(mid, 3)
+        lay.addWidget(self.map_caption)
+        lay.addWidget(self.pr_table)
+        lay.addLayout(thr)
+        lay.addLayout(misses, 1)
+
+        self.kind.activated.connect(lambda i: session.set_map_kind(self.kind.itemData(i)))
+        self.slider.valueChanged.connect(lambda v: session.set_threshold(v / SLIDER_STEPS))
+        self.slider_value.valueChanged.connect(session.set_threshold)
+        self.target.valueChanged.connect(lambda v: session.set_target_precision(v or None))
+        self.go_target.clicked.connect(self._go_to_target)
+        self.listen(session, "selection", self.refresh)
+        self.listen(session, "rungs", self._rungs_changed)
+        self.listen(session, "threshold", self._threshold_changed)
+        self.listen(session, "map", self._show_map)
+        self.listen(session, "prep", self._prep_changed)
+        self.listen(session, "target", self._target_changed)
+        self.refresh()
+
+    @staticmethod
+    def _fix_table(t: QtWidgets.QTableWidget) -> None:
+        t.setEditTriggers(QtWidgets.QAbstractItemView.EditTrigger.NoEditTriggers)
+        t.setSelectionMode(QtWidgets.QAbstractItemView.SelectionMode.NoSelection)
+        t.horizontalHeader().setSectionResizeMode(QtWidgets.QHeaderView.ResizeMode.Stretch)
+        t.verticalHeader().setSectionResizeMode(QtWidgets.QHeaderView.ResizeMode.Fixed)
+        t.verticalHeader().setDefaultSectionSize(22)
+        t.setVerticalScrollBarPolicy(QtCore.Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
+        t.setHorizontalScrollBarPolicy(QtCore.Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
+        t.setFixedHeight(t.horizontalHeader().sizeHint().height() + t.verticalHeader().length() + 2 * t.frameWidth())
+
+    @staticmethod
+    def _thumb_list() -> QtWidgets.QListWidget:
+        w = QtWidgets.QListWidget()
+        w.setViewMode(QtWidgets.QListView.ViewMode.IconMode)
+        w.setResizeMode(QtWidgets.QListView.ResizeMode.Adjust)
+        w.setMovement(QtWidgets.QListView.Movement.Static)
+        w.setSpacing(2)
+        w.setMinimumHeight(70)
+        return w
+
+    def _rungs_changed(self) -> None:
+        if self.session.selected is not None:  # marks (recommended, comparisons) may have moved
+            self._title()
+
+    def _prep_changed(self) -> None:
+        self._title()
+        self._show_map()
+
+    def _title(self) -> None:
+        r = self.session.selected
+        if r is None:
+            self.title.setText("Select a rung in the ladder.")
+            return
+        fam = FAMILIES[r.family]
+        mark = " — recommended" if r.recommended else ""
+        notes = "".join(f"<br><i>{n}</i>" for n in r.notes)
+        s = self.session
+        if s.prep is not None and s.run_prep is not None and s.prep.binarizer != s.run_prep.binarizer:
+            notes += f"<br><i>trained on {s.run_prep.binarizer.describe()} bits, not the current pixel prep</i>"
+        self.title.setText(f"<b>{r.key}</b>{mark}: {fam.description}, {fam.size_name} {r.size}; "
+                           f"{r.figures['parameters']} parameters{notes}")
+
+    def refresh(self) -> None:
+        s = self.session
+        r = s.selected
+        self._title()
+        scored = r is not None and r.scored
+        for w in (self.slider, self.slider_value, self.target, self.go_target):
+            w.setEnabled(scored)
+        self.target.blockSignals(True)
+        self.target.setValue(s.target_precision or 0.0)
+        self.target.blockSignals(False)
+        self._put_threshold()
+        self._show_map()
+        self._fill_static_rows()
+        self._threshold_changed()
+
+    def _put_threshold(self) -> None:
+        t = self.session.threshold
+        for w, v in ((self.slider, int(round(t * SLIDER_STEPS))), (self.slider_value, t)):
+            w.blockSignals(True)
+            w.setValue(v)
+            w.blockSignals(False)
+
+    def _set_row(self, row: int, m: dict | None, f1=None) -> None:
+        cells = ["–", "–", "–"] if m is None else [
+            _pct(m["precision"]) + _ci(m["precision_ci"]), _pct(m["recall"]) + _ci(m["recall_ci"]), _pct(m["f1"])]
+        if f1 is not None:
+            cells = ["", "", f1]
+        for c, text in enumerate(cells):
+            item = QtWidgets.QTableWidgetItem(text)
+            item.setTextAlignment(QtCore.Qt.AlignmentFlag.AlignCenter)
+            self.pr_table.setItem(row, c, item)
+
+    def _fill_static_rows(self) -> None:
+        r = self.session.selected
+        self._set_row(0, None if r is None else r.train)
+        if r is not None and r.cv:
+            self._set_row(1, None, f1=f"{r.cv['f1_mean']:.3f} ± {r.cv['f1_std']:.3f}")
+        else:
+            self._set_row(1, None)
+        self._set_row(2, None if r is None else r.test)
+
+    def _threshold_changed(self) -> None:
+        s = self.session
+        self._put_threshold()
+        m = s.threshold_metrics()
+        self._set_row(3, m)
+        scored = s.selected is not None and s.selected.scored
+        self.pr_table.setVerticalHeaderItem(3, QtWidgets.QTableWidgetItem(
+            f"held-out @ {s.threshold:.3f}" if scored else "held-out (no score)"))
+        for (row, col), key in {(0, 0): "tp", (0, 1): "fn", (1, 0): "fp", (1, 1): "tn"}.items():
+            item = QtWidgets.QTableWidgetItem("–" if m is None else str(m[key]))
+            item.setTextAlignment(QtCore.Qt.AlignmentFlag.AlignCenter)
+            self.confusion.setItem(row, col, item)
+        self._target_changed()
+        self._show_misses()
+
+    def _target_changed(self) -> None:
+        s = self.session
+        r = s.selected
+        if r is None or not r.scored:
+            self.target_label.setText("this rung gives no score; its decision is fixed" if r is not None else "")
+            return
+        if s.target_precision is None:
+            self.target_label.setText("no target set")
+            return
+        pt = s.target_point()
+        if pt is None:
+            self.target_label.setText(f"no threshold reaches precision {s.target_precision:.2f} on held-out patches")
+        else:
+            now = s.threshold_metrics()
+            here = "; met at this threshold" if now and now["precision"] is not None \
+                and now["precision"] >= s.target_precision else ""
+            self.target_label.setText(f"met on held-out patches from threshold {pt['threshold']:.3f}: precision "
+                                      f"{pt['precision']:.3f}, recall {pt['recall']:.3f}{here}")
+
+    def _go_to_target(self) -> None:
+        pt = self.session.target_point()
+        if pt is not None:
+            self.session.set_threshold(pt["threshold"])
+
+    def _show_map(self) -> None:
+        s = self.session
+        values, caption = s.heatmap()
+        pixels = s.selected.pixels if s.selected is not None and s.map_kind in ("native", "permutation") else None
+        self.pixmap.show_map(values, pixels)
+        if values is not None:
+            caption += f"  (range {float(np.min(values)):.3g} … {float(np.max(values)):.3g}; outlined: pixels read)" \
+                if pixels else f"  (range {float(np.min(values)):.3g} … {float(np.max(values)):.3g})"
+        self.map_caption.setText(caption)
+        self.kind.setCurrentIndex(self.kind.findData(s.map_kind))
+
+    def _show_misses(self) -> None:
+        s = self.session
+        fp, fn = s.misses()
+        ds = s.run_prep.dataset if s.run_prep is not None else None
+        for lst, label, rows, what in ((self.fp_list, self.fp_label, fp, "false positives"),
+                                       (self.fn_list, self.fn_label, fn, "false negatives")):
+            lst.clear()
+            shown = rows[:MAX_MISSES]
+            more = f", first {len(shown)} shown" if len(rows) > len(shown) else ""
+            label.setText(f"held-out {what}: {len(rows)}{more}")
+            if ds is None:
+                continue
+            lst.setIconSize(QtCore.QSize(ds.shape[1] * 3, ds.shape[0] * 3))
+            for i in shown:
+                item = QtWidgets.QListWidgetItem(enlarged_pixmap(ds.images[i], 3), "")
+                item.setToolTip(f"{ds.names[i]}: {ds.labels[i]}")
+                item.setData(QtCore.Qt.ItemDataRole.UserRole, int(i))
+                lst.addItem(item)

@@ -1,0 +1,247 @@
+"""The ladder: a table of rungs and, above it, error against size for every family."""
+
+from __future__ import annotations
+
+import math
+
+from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
+from pixelfit.app.session import Session
+from pixelfit.app.widgets import Listens
+from pixelfit.ladder import Rung
+from pixelfit.models import FAMILIES
+
+Role = QtCore.Qt.ItemDataRole
+
+#: One colour per family, so a family keeps its colour in the plot and the table.
+FAMILY_RGB = {"constant": (110, 110, 110), "lut": (46, 92, 160), "nb": (40, 150, 70), "logistic": (150, 60, 150),
+              "tree": (214, 120, 16), "mlp": (190, 50, 50), "memorize": (20, 150, 160)}
+#: Pen style of each curve kind.
+KIND_STYLE = {"train": QtCore.Qt.PenStyle.DashLine, "cv": QtCore.Qt.PenStyle.SolidLine,
+              "test": QtCore.Qt.PenStyle.DotLine, "bound": QtCore.Qt.PenStyle.DashDotLine}
+KIND_LABEL = {"train": "train error", "cv": "CV error", "test": "held-out error", "bound": "bound (95 %)"}
+
+
+def _num(v, digits: int = 3) -> str:
+    return "–" if v is None else f"{v:.{digits}f}"
+
+
+def _with_ci(v, ci) -> str:
+    if v is None:
+        return "–"
+    return f"{v:.3f}" + ("" if not ci else f" [{ci[0]:.2f}, {ci[1]:.2f}]")
+
+
+def _log2h(v) -> str:
+    if v is None:
+        return "–"
+    return f"{v:.1f}" if v < 1e5 else f"{v:.3g}"
+
+
+#: (header, tooltip, cell text of a rung)
+COLUMNS: list[tuple[str, str, callable]] = [
+    ("rung", "family-size; ★ marks the recommended rung",
+     lambda r: ("★ " if r.recommended else "") + r.key),
+    ("size", "the family's size axis", lambda r: f"{r.size} {FAMILIES[r.family].size_name}"),
+    ("log2 |H|", "log2 of the number of rules in the family's class at this size (finite classes)",
+     lambda r: _log2h(r.figures["log2_class_size"])),
+    ("params", "parameters of the fitted rule", lambda r: str(r.figures["parameters"])),
+    ("train F1", "F1 on the training part", lambda r: _num(r.train["f1"])),
+    ("CV F1 ± sd", "cross-validated F1 on the training part, mean ± fold standard deviation",
+     lambda r: "–" if not r.cv else f"{r.cv['f1_mean']:.3f} ± {r.cv['f1_std']:.3f}"),
+    ("held-out P [95 % CI]", "precision on held-out patches with its Wilson interval",
+     lambda r: _with_ci(r.test["precision"], r.test["precision_ci"])),
+    ("held-out R [95 % CI]", "recall on held-out patches with its Wilson interval",
+     lambda r: _with_ci(r.test["recall"], r.test["recall_ci"])),
+    ("bound", "upper bound on the true error rate at 95 % confidence",
+     lambda r: "–" if r.bound is None else _num(r.bound["error_upper"])),
+]
+
+
+class LadderTableModel(QtCore.QAbstractTableModel):
+    """Read-only view of ``session.rungs``."""
+
+    def __init__(self, session: Session, parent=None):
+        super().__init__(parent)
+        self.session = session
+
+    def reset(self) -> None:
+        self.beginResetModel()
+        self.endResetModel()
+
+    def rowCount(self, parent=None) -> int:
+        return 0 if parent is not None and parent.isValid() else len(self.session.rungs)
+
+    def columnCount(self, parent=None) -> int:
+        return 0 if parent is not None and parent.isValid() else len(COLUMNS)
+
+    def headerData(self, section, orientation, role=Role.DisplayRole):
+        if orientation == QtCore.Qt.Orientation.Horizontal:
+            if role == Role.DisplayRole:
+                return COLUMNS[section][0]
+            if role == Role.ToolTipRole:
+                return COLUMNS[section][1]
+        return None
+
+    def data(self, index, role=Role.DisplayRole):
+        if not index.isValid():
+            return None
+        r: Rung = self.session.rungs[index.row()]
+        if role == Role.DisplayRole:
+            return COLUMNS[index.column()][2](r)
+        if role == Role.FontRole and r.recommended:
+            f = QtGui.QFont()
+            f.setBold(True)
+            return f
+        if role == Role.ForegroundRole and index.column() == 0:
+            return QtGui.QBrush(QtGui.QColor(*FAMILY_RGB.get(r.family, (0, 0, 0))))
+        if role == Role.BackgroundRole and r.recommended:
+            return QtGui.QBrush(QtGui.QColor(232, 244, 234))
+        if role == Role.ToolTipRole:
+            lines = list(r.notes)
+            vs = r.versus_smaller
+            if vs:
+                verdict = "significantly better" if vs["significant"] else "not significantly better"
+                lines.append(f"vs {r.family}-{vs['size']}: {verdict} on held-out patches (McNemar p = {vs['p_value']:.3g})")
+            return "\n".join(lines) or None
+        if role == Role.TextAlignmentRole and index.column() > 0:
+            return int(QtCore.Qt.AlignmentFlag.AlignRight | QtCore.Qt.AlignmentFlag.AlignVCenter)
+        return None
+
+
+class LadderTable(Listens, QtWidgets.QTableView):
+    """The rung table; selecting a row selects the rung everywhere."""
+
+    def __init__(self, session: Session, parent: QtWidgets.QWidget | None = None):
+        super().__init__(parent)
+        self.session = session
+        self.table_model = LadderTableModel(session, self)
+        self.setModel(self.table_model)
+        self.setSelectionBehavior(QtWidgets.QAbstractItemView.SelectionBehavior.SelectRows)
+        self.setSelectionMode(QtWidgets.QAbstractItemView.SelectionMode.SingleSelection)
+        self.setEditTriggers(QtWidgets.QAbstractItemView.EditTrigger.NoEditTriggers)
+        self.verticalHeader().setVisible(False)
+        self.verticalHeader().setDefaultSectionSize(22)
+        self.horizontalHeader().setStretchLastSection(True)
+        self.setAlternatingRowColors(True)
+        self.selectionModel().currentRowChanged.connect(self._row_chosen)
+        self.listen(session, "rungs", self._rungs_changed)
+        self.listen(session, "selection", self._show_selection)
+
+    def _row_chosen(self, current: QtCore.QModelIndex, _previous) -> None:
+        if current.isValid() and current.row() < len(self.session.rungs):
+            key = self.session.rungs[current.row()].key
+            if self.session.selected is None or self.session.selected.key != key:
+                self.session.select(key)
+
+    def _rungs_changed(self) -> None:
+        self.table_model.reset()
+        self.resizeColumnsToContents()
+        self._show_selection()
+
+    def _show_selection(self) -> None:
+        sel = self.session.selected
+        sm = self.selectionModel()
+        sm.blockSignals(True)
+        if sel is None:
+            sm.clearSelection()
+        else:
+            row = self.session.rungs.index(sel)
+            idx = self.table_model.index(row, 0)
+            sm.setCurrentIndex(idx, QtCore.QItemSelectionModel.SelectionFlag.ClearAndSelect
+                               | QtCore.QItemSelectionModel.SelectionFlag.Rows)
+            self.scrollTo(idx)
+        sm.blockSignals(False)
+        self.viewport().update()
+
+
+def _point_error(r: Rung) -> float:
+    """Where a rung's clickable point sits: its CV error, or its held-out error without CV."""
+    return r.cv["error_mean"] if r.cv else 1 - r.test["accuracy"]
+
+
+def size_position(size: int) -> float:
+    """Horizontal position of a size: log2 spacing, with size 0 (the constant) one step left of 1."""
+    return math.log2(size) if size >= 1 else -1.0
+
+
+class ErrorPlot(Listens, pg.PlotWidget):
+    """Error against size, one colour per family and one line style per kind; click a point to select."""
+
+    def __init__(self, session: Session, parent: QtWidgets.QWidget | None = None):
+        super().__init__(parent)
+        self.session = session
+        self.setMenuEnabled(False)
+        self.hideButtons()
+        pi = self.getPlotItem()
+        pi.setLabel("left", "error rate")
+        pi.getAxis("left").enableAutoSIPrefix(False)
+        pi.setLabel("bottom", "size (log2 spacing)")
+        pi.showGrid(x=True, y=True, alpha=0.25)
+        self.legend = pi.addLegend(offset=(-10, 10), labelTextSize="8pt", colCount=2)
+        for kind, style in KIND_STYLE.items():  # line style keys, in black, before the family colours
+            self.legend.addItem(pg.PlotDataItem(pen=pg.mkPen((0, 0, 0), width=1.5, style=style)), KIND_LABEL[kind])
+        self.points = pg.ScatterPlotItem(size=9, hoverable=True, tip=None)
+        self.points.sigClicked.connect(self._clicked)
+        self.marker = pg.ScatterPlotItem(size=18, symbol="o", pen=pg.mkPen((0, 0, 0), width=2), brush=None)
+        # One curve item per (family, kind), made on first use and then only given new data: a
+        # rung arriving must cost the GUI thread little (see benchmarks/bench_gui_stall.py).
+        self._curves: dict[tuple[str, str], pg.PlotDataItem] = {}
+        self.addItem(self.points)
+        self.addItem(self.marker)
+        self.listen(session, "rungs", self.redraw)
+        self.listen(session, "selection", self._mark)
+        self.redraw()
+
+    def _clicked(self, _item, points, _ev=None) -> None:
+        if len(points):
+            self.session.select(points[0].data())
+
+    def _curve(self, family: str, kind: str) -> pg.PlotDataItem:
+        item = self._curves.get((family, kind))
+        if item is None:
+            rgb = FAMILY_RGB.get(family, (0, 0, 0))
+            item = pg.PlotDataItem(pen=pg.mkPen(rgb, width=2.5 if kind == "cv" else 1.5, style=KIND_STYLE[kind]))
+            self.getPlotItem().addItem(item)
+            self._curves[(family, kind)] = item
+            if kind == "cv":
+                self.legend.addItem(item, family)
+        return item
+
+    def redraw(self) -> None:
+        pi = self.getPlotItem()
+        curves = self.session.error_curves()
+        sizes = set()
+        for key, item in self._curves.items():
+            if key[0] not in curves:
+                item.setData([], [])
+        for fam, kinds in curves.items():
+            for kind, pts in kinds.items():
+                sizes.update(s for s, _ in pts)
+                xs = [size_position(s) for s, e in pts if e is not None]
+                ys = [min(1.0, e) for s, e in pts if e is not None]
+                if xs or (fam, kind) in self._curves:
+                    self._curve(fam, kind).setData(xs, ys)
+        spots = []
+        for r in self.session.rungs:
+            rgb = FAMILY_RGB.get(r.family, (0, 0, 0))
+            spots.append({"pos": (size_position(r.size), min(1.0, _point_error(r))), "data": r.key,
+                          "brush": pg.mkBrush(*rgb), "pen": pg.mkPen("w"),
+                          "symbol": "star" if r.recommended else "o", "size": 16 if r.recommended else 9})
+        self.points.setData(spots)
+        shown = [e for kinds in curves.values() for pts in kinds.values() for _, e in pts if e is not None]
+        pi.setYRange(0, min(1.0, max(shown, default=1.0) * 1.1 + 0.02), padding=0)
+        ticks = [(size_position(s), str(s)) for s in sorted(sizes)]
+        pi.getAxis("bottom").setTicks([ticks])
+        if sizes:
+            xs = [t[0] for t in ticks]
+            pi.setXRange(min(xs) - 0.3, max(xs) + 0.3, padding=0)
+        self._mark()
+
+    def _mark(self) -> None:
+        r = self.session.selected
+        if r is None:
+            self.marker.setData([])
+            return
+        y = _point_error(r)
+        self.marker.setData([{"pos": (size_position(r.size), min(1.0, y))}])
+

@@ -1,0 +1,72 @@
+"""The import report: what was read, how many of each class, and every skipped file with why."""
+
+from __future__ import annotations
+
+import html
+
+from pixelfit.app._qt import QtCore, QtWidgets
+from pixelfit.app.session import Session
+from pixelfit.app.widgets import Listens
+
+
+class ImportReport(Listens, QtWidgets.QGroupBox):
+    """Source, layout, patch shape, counts per class, the class to detect, skipped files."""
+
+    def __init__(self, session: Session, parent: QtWidgets.QWidget | None = None):
+        super().__init__("Import report", parent)
+        self.session = session
+        self.summary = QtWidgets.QLabel("Nothing open. Open a folder of patches or an .npz file (Ctrl+O), "
+                                        "or drop one on the window.")
+        self.summary.setWordWrap(True)
+        self.summary.setTextInteractionFlags(QtCore.Qt.TextInteractionFlag.TextSelectableByMouse)
+        self.positive = QtWidgets.QComboBox()
+        self.positive.setToolTip("The class the rule must detect; the others form its negative class")
+        self.skipped_label = QtWidgets.QLabel("")
+        self.skipped = QtWidgets.QListWidget()
+        self.skipped.setMaximumHeight(90)
+        lay = QtWidgets.QFormLayout(self)
+        lay.addRow(self.summary)
+        lay.addRow("detect", self.positive)
+        lay.addRow(self.skipped_label)
+        lay.addRow(self.skipped)
+        self.positive.activated.connect(self._positive_chosen)
+        self.listen(session, "dataset", self.refresh)
+        self.listen(session, "prep", self.refresh)
+        self.listen(session, "run", self.refresh)
+        self.refresh()
+
+    def _positive_chosen(self, index: int) -> None:
+        self.session.set_positive(self.positive.itemData(index))
+
+    def refresh(self) -> None:
+        s = self.session
+        ds = s.dataset
+        self.positive.blockSignals(True)
+        self.positive.clear()
+        self.skipped.clear()
+        if ds is None:
+            self.positive.blockSignals(False)
+            self.skipped_label.setText("")
+            self.skipped.setVisible(False)
+            return
+        h, w = ds.shape
+        rows = "".join(f"<tr><td>{html.escape(c)}</td><td align='right'>&nbsp;{n}</td>"
+                       f"<td>{'&nbsp;&larr; detect' if c == s.positive else ''}</td></tr>"
+                       for c, n in ds.counts.items())
+        split = ""
+        if s.prep is not None:
+            kind = "given split" if s.prep.presplit else f"held out {s.prep.test_fraction:.0%}, seed {s.prep.seed}"
+            split = f"<br>{len(s.prep.y_train)} train / {len(s.prep.y_test)} held-out ({kind})"
+        self.summary.setText(f"<b>{html.escape(ds.source)}</b><br>{len(ds)} patches of {h}&times;{w} "
+                             f"({html.escape(ds.layout)}){split}<table>{rows}</table>")
+        for c in ds.counts:
+            self.positive.addItem(c, c)
+        if s.positive is not None:
+            self.positive.setCurrentIndex(self.positive.findData(s.positive))
+        self.positive.setEnabled(len(ds.counts) > 1 and not s.running)
+        self.positive.blockSignals(False)
+        n = len(ds.skipped)
+        self.skipped_label.setText(f"skipped {n} file(s):" if n else "skipped nothing")
+        self.skipped.setVisible(bool(n))
+        for sk in ds.skipped:
+            self.skipped.addItem(f"{sk.path}: {sk.reason}")

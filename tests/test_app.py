@@ -1,0 +1,301 @@
+"""The desktop application, driven offscreen with pytest-qt. Assertions are on the session and
+its data, not on pixels (except the one row-major check, which is about pixels by design)."""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+pytest.importorskip("pytestqt")
+from conftest import make_patches, write_class_folders  # noqa: E402
+
+from pixelfit.app._qt import QtCore, QtGui, QtWidgets  # noqa: E402  (before any widget is built)
+from pixelfit.app.main_window import RECENT_KEY, MainWindow  # noqa: E402
+from pixelfit.app.widgets.inspector import SLIDER_STEPS, PixelMap  # noqa: E402
+from pixelfit.evaluate import detection_metrics  # noqa: E402
+from pixelfit.rulefile import load_rule  # noqa: E402
+
+SMALL = dict(families=["constant", "lut", "tree"], max_size=2, folds=2)
+
+
+class Answers:
+    """Stands in for the confirmation dialogs: records each question, answers ``self.reply``."""
+
+    def __init__(self):
+        self.asked: list[str] = []
+        self.reply = True
+
+    def __call__(self, title: str, question: str) -> bool:
+        self.asked.append(title)
+        return self.reply
+
+
+@pytest.fixture
+def answers():
+    return Answers()
+
+
+@pytest.fixture
+def window(qtbot, tmp_path, answers):
+    settings = QtCore.QSettings(str(tmp_path / "settings.ini"), QtCore.QSettings.Format.IniFormat)
+    w = MainWindow(settings=settings, ask=answers)
+    w.show()
+    yield w
+    w.stop_worker()
+    answers.reply = True
+    w.close()
+    assert w.worker is None
+    assert not w.session.running
+    w.deleteLater()
+
+
+def climb(qtbot, w: MainWindow, **settings) -> None:
+    """Apply ladder settings through the panel's widgets, press climb, wait for the end."""
+    panel = w.climb
+    fams = settings.get("families", w.session.families)
+    for name, cb in panel.checks.items():
+        cb.setChecked(name in fams)
+    panel.max_size.setValue(settings.get("max_size") or 0)
+    panel.folds.setValue(settings.get("folds", w.session.folds))
+    with qtbot.waitSignal(w.act_climb.triggered, timeout=1000):
+        w.act_climb.trigger()
+    qtbot.waitUntil(lambda: not w.session.running, timeout=60_000)
+
+
+def test_session_model_imports_without_qt():
+    """The window's state lives in a plain-Python model (tests/test_layering.py covers the core)."""
+    import subprocess
+    import sys
+
+    code = ("import sys, pixelfit.app, pixelfit.app.session; "
+            "bad = [m for m in ('PySide6', 'pyqtgraph') if m in sys.modules]; print(bad); sys.exit(1 if bad else 0)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert out.returncode == 0, out.stdout + out.stderr
+
+
+def test_full_flow(qtbot, window, class_folder, tmp_path, monkeypatch, answers):
+    w, s = window, window.session
+    assert w.open_path(class_folder)
+    ds = s.dataset
+    assert ds.counts == {"blank": int((ds.labels == "blank").sum()), "spot": int((ds.labels == "spot").sum())}
+    assert w.report.positive.currentData() == s.positive == "spot"
+    assert w.gallery.model.rowCount() == len(ds)
+    assert w.recent_sources()[0].endswith("classes")
+
+    # Binarization: pick the fixed method and a level through the panel; the bits follow.
+    prep = w.prep_panel
+    prep.method.setCurrentIndex(prep.method.findData("fixed"))
+    prep.method.activated.emit(prep.method.currentIndex())
+    prep.level.setValue(150)
+    assert s.binarizer.method == "fixed" and s.binarizer.threshold == 150
+    assert np.array_equal(s.prep.X_train.reshape(-1, 8, 8), ds.images[~s.prep.test_mask] >= 150)
+    counts, thresholds = s.histogram()
+    assert counts.sum() == (~s.prep.test_mask).sum() * 64 and list(thresholds) == [150.0]
+    pix = w.gallery.model.data(w.gallery.model.index(0), QtCore.Qt.ItemDataRole.DecorationRole)
+    assert pix.width() == 2 * 8 * w.gallery.model.scale + 2
+    # The class filter shows only that class.
+    w.gallery.filter.setCurrentIndex(w.gallery.filter.findData("spot"))
+    w.gallery.filter.activated.emit(w.gallery.filter.currentIndex())
+    assert w.gallery.model.rowCount() == ds.counts["spot"]
+
+    climb(qtbot, w, **SMALL)
+    plan = s.plan()
+    assert [r.key for r in s.rungs] == [f"{f}-{k}" for f, k in plan]
+    assert w.table.model().rowCount() == len(plan)
+    assert sum(r.recommended for r in s.rungs) == 1 and s.selected is s.recommended
+    assert s.unsaved
+
+    assert w.climb.bar.value() == w.climb.bar.maximum() == s.progress_state[1] > 0
+
+    # Clicking a point of the error plot selects that rung; so does a row of the table.
+    plot = w.error_plot.points
+    spot = next(p for p in plot.points() if p.data() == "tree-1")
+    plot.sigClicked.emit(plot, [spot], None)
+    assert s.selected.key == "tree-1"
+    assert w.table.selectionModel().currentIndex().row() == [r.key for r in s.rungs].index("tree-1")
+    row = next(i for i, r in enumerate(s.rungs) if r.key == "lut-2")
+    w.table.selectRow(row)
+    assert s.selected.key == "lut-2"
+    assert w.inspector.title.text().startswith("<b>lut-2</b>")
+    assert w.inspector.pixmap.values.shape == (8, 8)
+
+    # The threshold slider: held-out metrics follow, computed by the core.
+    w.inspector.slider.setValue(int(0.2 * SLIDER_STEPS))
+    assert s.threshold == pytest.approx(0.2)
+    expect = detection_metrics(s.run_prep.y_test, s.selected.test_scores >= 0.2)
+    assert s.threshold_metrics() == expect
+    assert w.inspector.confusion.item(0, 0).text() == str(expect["tp"])
+    assert w.inspector.pr_table.item(3, 2).text() == f"{expect['f1']:.3f}"
+    fp, fn = s.misses()
+    assert len(fp) == expect["fp"] and len(fn) == expect["fn"]
+    assert w.inspector.fp_list.count() == min(len(fp), 48)
+    w.inspector.slider.setValue(0)
+    assert s.threshold_metrics()["recall"] == 1.0  # everything is called positive at threshold 0
+
+    # A target precision: the point shown is the core's choice on the held-out operating points,
+    # and "move there" puts the threshold on it.
+    from pixelfit.evaluate._compare import threshold_for_target
+
+    points = s.selected.operating["test_points"]
+    target = math.floor(max(p["precision"] for p in points) * 100) / 100  # reachable, on the spin's grid
+    w.inspector.target.setValue(target)
+    assert s.target_precision == target
+    pt = threshold_for_target(points, target, None)
+    assert pt is not None and s.target_point() == pt
+    w.inspector.go_target.click()
+    assert s.threshold == pytest.approx(pt["threshold"]) and s.threshold_metrics()["precision"] >= target
+    assert f"{pt['threshold']:.3f}" in w.inspector.target_label.text()
+
+    # Switching the map to a data map and back.
+    w.inspector.kind.setCurrentIndex(w.inspector.kind.findData("mean_difference"))
+    w.inspector.kind.activated.emit(w.inspector.kind.currentIndex())
+    assert s.map_kind == "mean_difference"
+    assert np.allclose(w.inspector.pixmap.values, s.run_prep.data_maps()["mean_difference"], atol=1e-6)
+
+    # Save through the action (the file dialog answered by the test) and load the file back.
+    target = tmp_path / "rules" / "lut-2.json"
+    monkeypatch.setattr(QtWidgets.QFileDialog, "getSaveFileName", lambda *a, **k: (str(target), ""))
+    w.act_save.trigger()
+    rule = load_rule(target)
+    assert (rule.family, rule.size) == ("lut", 2)
+    assert np.array_equal(rule.predict(s.run_prep.X_test), s.selected.test_pred)
+    assert not s.unsaved and str(target) in w.strip.text.text()
+    header = tmp_path / "c" / "lut_2.h"
+    monkeypatch.setattr(QtWidgets.QFileDialog, "getSaveFileName", lambda *a, **k: (str(header), ""))
+    w.act_export.trigger()
+    assert header.is_file() and header.with_suffix(".json").is_file()
+    assert "exported" in w.strip.text.text() and not w.strip.error
+    assert answers.asked == []
+
+
+def test_halt_keeps_finished_rungs(qtbot, window, tmp_path):
+    imgs, labels = make_patches(np.random.default_rng(3), n=600, shape=(12, 12))
+    w, s = window, window.session
+    assert w.open_path(write_class_folders(tmp_path / "big", imgs, labels))
+    w.session.set_ladder(families=["constant", "lut", "logistic", "tree", "mlp"], max_size=None, folds=5)
+    assert w.start_climb()
+    qtbot.waitUntil(lambda: len(s.rungs) >= 1, timeout=30_000)
+    assert s.running and w.table.model().rowCount() == len(s.rungs)  # rungs show as they finish
+    w.act_halt.trigger()
+    qtbot.waitUntil(lambda: not s.running, timeout=30_000)
+    assert 1 <= len(s.rungs) < s.planned
+    assert "halted" in w.strip.text.text()
+    assert w.worker is None and w.act_climb.isEnabled()
+
+
+def test_errors_stay_in_the_window(qtbot, window, tmp_path, class_folder, monkeypatch):
+    w, s = window, window.session
+    assert not w.open_path(tmp_path / "nowhere")
+    assert w.strip.error and "no such file" in w.strip.text.text() and s.dataset is None
+    one = tmp_path / "one"
+    write_class_folders(one, *make_patches(np.random.default_rng(1), n=10))
+    for p in (one / "blank").iterdir():
+        p.unlink()
+    (one / "blank").rmdir()
+    assert not w.open_path(one)
+    assert "only one class" in w.strip.text.text()
+
+    assert w.open_path(class_folder)
+    assert not s.set_binarizer("fixed", 999.0)
+    assert w.strip.error and s.binarizer.method == "otsu"
+
+    def broken(*_a, **_k):
+        raise RuntimeError("model exploded")
+        yield
+
+    monkeypatch.setattr("pixelfit.app.workers.run_ladder", broken)
+    climb(qtbot, w, **SMALL)
+    assert w.strip.error and "model exploded" in w.strip.text.text()
+    assert s.rungs == [] and w.worker is None
+
+
+def test_close_asks_before_dropping_rungs(qtbot, window, class_folder, answers):
+    w, s = window, window.session
+    w.open_path(class_folder)
+    climb(qtbot, w, families=["constant", "lut"], max_size=1, folds=2)
+    answers.reply = False
+    assert not w.close()
+    assert w.isVisible() and answers.asked == ["Close without saving?"]
+    assert not w.open_path(class_folder)  # opening other patches asks too, and keeps the rungs
+    assert len(s.rungs) == 2
+    answers.reply = True
+    assert w.close()
+
+
+def test_drop_opens_and_recent_list(qtbot, window, class_folder, npz_file):
+    w = window
+    mime = QtCore.QMimeData()
+    mime.setUrls([QtCore.QUrl.fromLocalFile(str(npz_file))])
+    ev = QtGui.QDropEvent(QtCore.QPointF(10, 10), QtCore.Qt.DropAction.CopyAction, mime,
+                          QtCore.Qt.MouseButton.LeftButton, QtCore.Qt.KeyboardModifier.NoModifier)
+    w.dropEvent(ev)
+    assert w.session.dataset.layout == "npz"
+    w.open_path(class_folder)
+    recent = w.recent_sources()
+    assert recent[:2] == [str(class_folder.resolve()), str(npz_file.resolve())]
+    assert w.settings.value(RECENT_KEY) is not None
+
+
+def test_shortcuts(window):
+    w = window
+    keys = {a: [k.toString() for k in a.shortcuts()] for a in (w.act_open, w.act_climb, w.act_halt, w.act_save)}
+    assert keys[w.act_open] == [QtGui.QKeySequence(QtGui.QKeySequence.StandardKey.Open).toString()]
+    assert keys[w.act_climb] == ["Ctrl+R"] and "Esc" in keys[w.act_halt]
+    assert keys[w.act_save] == [QtGui.QKeySequence(QtGui.QKeySequence.StandardKey.Save).toString()]
+
+
+@pytest.mark.parametrize("shape,hot", [((6, 8), (2, 5)), ((5, 5), (4, 0))])
+def test_heatmap_is_row_major(qtbot, shape, hot):
+    view = PixelMap()
+    qtbot.addWidget(view)
+    values = np.zeros(shape)
+    values[hot] = 3.0
+    view.show_map(values)
+    item = view.image
+    assert item.axisOrder == "row-major"
+    item.render()
+    qimg = item.qimage
+    assert (qimg.width(), qimg.height()) == (shape[1], shape[0])
+    hot_rgb = QtGui.QColor(qimg.pixel(hot[1], hot[0])).getRgb()
+    others = {QtGui.QColor(qimg.pixel(c, r)).getRgb() for r in range(shape[0]) for c in range(shape[1])
+              if (r, c) != hot}
+    assert len(others) == 1 and hot_rgb not in others
+    # The pixel's centre sits at (col + 0.5, row + 0.5) in the plot, and row 0 is drawn at the top.
+    centre = item.mapToParent(QtCore.QPointF(hot[1] + 0.5, hot[0] + 0.5))
+    assert (centre.x(), centre.y()) == (hot[1] + 0.5, hot[0] + 0.5)
+    vb = view.plot.getViewBox()
+    assert vb.mapViewToScene(QtCore.QPointF(0, 0)).y() < vb.mapViewToScene(QtCore.QPointF(0, shape[0])).y()
+
+
+def test_all_zero_map_has_finite_levels(qtbot):
+    view = PixelMap()
+    qtbot.addWidget(view)
+    view.show_map(np.zeros((4, 4), bool))
+    assert view.values.dtype == np.float32
+    assert tuple(view.image.getLevels()) == (-1.0, 1.0)
+
+
+def test_plain_pixelfit_opens_the_gui(monkeypatch):
+    import pixelfit.app
+    from pixelfit.cli import main
+
+    seen = []
+    monkeypatch.setattr(pixelfit.app, "launch", lambda path=None, argv=None: seen.append(path) or 0)
+    assert main([]) == 0 and main(["gui", "some/folder"]) == 0
+    assert seen == [None, "some/folder"]
+
+
+def test_start_on_demo_set_or_ask_for_a_folder(qtbot, window, class_folder, tmp_path, monkeypatch):
+    from pixelfit.app import main_window
+
+    w = window
+    asked = []
+    monkeypatch.setattr(w, "choose_folder", lambda: asked.append(True))
+    monkeypatch.setattr("pixelfit.cli.resolve_dataset_path", lambda name: tmp_path / "no-demo-here")
+    main_window._open_initial(w, None)
+    qtbot.waitUntil(lambda: asked == [True], timeout=2000)
+    assert "demo set" in w.strip.text.text() and w.session.dataset is None
+    monkeypatch.setattr("pixelfit.cli.resolve_dataset_path", lambda name: class_folder)
+    main_window._open_initial(w, None)
+    assert w.session.dataset is not None and w.session.dataset.source == str(class_folder)
