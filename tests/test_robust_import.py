@@ -629,3 +629,29 @@ def test_npz_bytes_labels_decoded_and_bad_text_refused(tmp_path, capsys):
                    "'labels' holds text that cannot be written as UTF-8", capsys)
     assert_refused(_npz(tmp_path, "empty.npz", images=images, labels=np.array(["", "x"] * 4)),
                    "'labels' holds an empty class name", capsys)
+
+
+# ---- the desktop application's model: a message, and the application goes on ------------------
+
+
+def test_application_model_turns_every_refusal_into_a_message(base, tmp_path):
+    from pixelfit.app.session import Session
+
+    session = Session()
+    messages = []
+    session.subscribe("message", lambda text, error=False: messages.append((text, error)))
+    assert session.open(base) is True
+    good = session.dataset
+    (tmp_path / "empty").mkdir()
+    nan = tmp_path / "nan.npz"
+    np.savez(nan, images=np.full((4, 8, 8), np.nan), labels=np.array(["a", "b"] * 2))
+    (tmp_path / "junk.npz").write_bytes(b"PK\x03\x04 not a zip")
+    for bad in (tmp_path / "empty", tmp_path / "missing", nan, tmp_path / "junk.npz"):
+        messages.clear()
+        assert session.open(bad) is False
+        assert len(messages) == 1 and messages[0][1] is True and "\n" not in messages[0][0]
+        assert session.dataset is good  # the patches already open stay open
+    (base / "spot" / "zero.png").write_bytes(b"")
+    messages.clear()
+    assert session.open(base) is True
+    assert messages[-1] == (f"opened {base}: {2 * N_GOOD} patches of 8x8; skipped 1 file(s)", False)
