@@ -11,7 +11,6 @@ import copy
 import io
 import json
 import os
-import zipfile
 
 import numpy as np
 import pytest

@@ -671,7 +671,7 @@ def load_for_apply(path: str | os.PathLike, shape: tuple[int, int]) -> Dataset:
             else:
                 label = ""
             col.add_file(file, label)
-    images, labels, names = col.finish(tuple(shape))
+    images, labels, names = col.finish((int(shape[0]), int(shape[1])))
     ds = Dataset(images=images, labels=labels, names=names, source=str(root), layout="apply", skipped=col.skipped)
     if len(ds) == 0:
         first = f"; first skipped: {ds.skipped[0].path}: {ds.skipped[0].reason}" if ds.skipped else ""

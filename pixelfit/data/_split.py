@@ -24,7 +24,8 @@ def stratified_split(y: np.ndarray, test_fraction: float = 0.25, seed: int = 0,
     if counts.min() < 2:
         small = classes[np.argmin(counts)]
         raise TrainingError(
-            f"class {(class_names or {}).get(small, small)!r} has {counts.min()} patch(es); a stratified split needs at least 2 per class"
+            f"class {(class_names or {}).get(small, small)!r} has {counts.min()} patch(es); "
+            "a stratified split needs at least 2 per class"
         )
     idx = np.arange(len(y))
     try:
