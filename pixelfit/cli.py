@@ -188,6 +188,14 @@ def _write_rules(out, prep, rungs) -> None:
         save_rung(Path(out) / r.rule_file, prep, r)
 
 
+def cmd_demo(args) -> int:
+    from pixelfit.demo import write_demo_set
+
+    written = write_demo_set(args.name, args.out)
+    print(f"wrote {len(written)} patches of the synthetic {args.name} set to {args.out}")
+    return EXIT_OK
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = _Parser(prog="pixelfit", description="How few pixels does a detector need? Train a ladder of rules "
                 "of increasing size over small binary patches and measure each one.")
@@ -221,6 +229,15 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--target-recall", type=float, metavar="R", help="find the threshold meeting this recall")
     f.add_argument("--no-rules", dest="rules", action="store_false", help="do not write rules/<family>-<size>.json")
     f.set_defaults(func=cmd_fit)
+
+    from pixelfit.demo import GENERATORS
+
+    d = sub.add_parser("demo", help="regenerate a bundled synthetic demo set",
+                       description="Write a bundled demo set, generated from its fixed seed, as PNG patches; "
+                       "the result is the same byte for byte as the shipped copy.")
+    d.add_argument("name", choices=list(GENERATORS), help="which set")
+    d.add_argument("--out", required=True, help="folder of the set (new, empty, or an earlier copy of it)")
+    d.set_defaults(func=cmd_demo)
     return p
 
 
