@@ -14,10 +14,11 @@ Both sets are synthetic scenes of our own, drawn so that binarization and model 
     solder balls that each touch one pad only. Same nuisances; laid out pre-split into
     ``train/`` and ``test/``, each with class sub-folders.
 
-Everything is computed in float64 with operations whose results are exactly rounded (no
-trigonometry), quantised once, and written with Pillow's PNG encoder at compression level 0
-(stored blocks, no ancillary chunks), so the files are the same byte for byte wherever they are
-generated.
+The seeds are fixed (:data:`BOTTLE_CAPS_SEED`, :data:`SOLDER_BRIDGES_SEED`). Shapes are drawn
+with arithmetic and comparisons only (no trigonometry, whose last bit varies between maths
+libraries), in float64, quantised once, and written by Pillow's PNG encoder at compression
+level 0 with no metadata chunk, so the files come out the same byte for byte on any machine
+with the same numpy random streams.
 """
 
 from __future__ import annotations
@@ -199,14 +200,15 @@ def solder_bridges(seed: int = SOLDER_BRIDGES_SEED, n_bridge: int = 700, n_clear
         else:
             u = rng.random()
             sides = [] if u < 0.4 else (["left"] if u < 0.65 else (["right"] if u < 0.9 else ["left", "right"]))
-            reach_limit = right - left - 1.0  # a ball on one side never touches the other pad
-            if len(sides) == 2:
-                reach_limit /= 2
             for side in sides:
                 r = rng.uniform(1.1, 2.2)
-                into = min(r * rng.uniform(1.2, 1.9), reach_limit)  # how far the ball reaches into the gap
                 cy = rng.uniform(1.5, h - 1.5)
-                cx = left + into - r if side == "left" else right - into + r
+                near_left, near_right = left + tilt[0] * (cy - h / 2), right + tilt[1] * (cy - h / 2)
+                # The ball overlaps its own pad (it reaches 1.2r..1.9r past the edge, so its far
+                # side lies inside the pad) and stays a pixel clear of the other pad and ball.
+                limit = (near_right - near_left - 1.0) / len(sides)
+                into = min(r * rng.uniform(1.2, 1.9), limit)
+                cx = near_left + into - r if side == "left" else near_right - into + r
                 scene = _paint(scene, _disc(grid, cy, cx, r), rng.uniform(170.0, 215.0))
         if rng.random() < 0.06:  # glare off a pad or the mask
             scene = _paint(scene, _disc(grid, rng.uniform(0, h), rng.uniform(0, w), rng.uniform(0.6, 1.2)), 330.0)
