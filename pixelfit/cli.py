@@ -340,6 +340,14 @@ def cmd_export(args) -> int:
     return EXIT_OK
 
 
+def cmd_demo(args) -> int:
+    from pixelfit.demo import write_demo_set
+
+    written = write_demo_set(args.name, args.out)
+    print(f"wrote {len(written)} patches of the synthetic {args.name} set to {args.out}")
+    return EXIT_OK
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = _Parser(prog="pixelfit", description="How few pixels does a detector need? Train a ladder of rules "
                 "of increasing size over small binary patches and measure each one.")
@@ -407,6 +415,15 @@ def build_parser() -> argparse.ArgumentParser:
                        "(default: the bundled bottle-caps set when present).")
     g.add_argument("path", nargs="?", help="folder of patches, .npz file, or a demo set name")
     g.set_defaults(func=cmd_gui)
+
+    from pixelfit.demo import GENERATORS
+
+    d = sub.add_parser("demo", help="regenerate a bundled synthetic demo set",
+                       description="Write a bundled demo set, generated from its fixed seed, as PNG patches; "
+                       "the result is the same byte for byte as the shipped copy.")
+    d.add_argument("name", choices=list(GENERATORS), help="which set")
+    d.add_argument("--out", required=True, help="folder of the set (new, empty, or an earlier copy of it)")
+    d.set_defaults(func=cmd_demo)
     return p
 
 

@@ -13,6 +13,8 @@ Four layouts are recognised, in this order:
 
 Nothing unreadable stops an import: each such file is listed in :attr:`Dataset.skipped` with the
 reason. Only when nothing usable remains is :class:`~pixelfit.errors.DatasetError` raised.
+A README (``README``, ``README.md``, ``README.txt``) beside the class folders or beside
+``train/`` and ``test/`` describes the data: it is neither imported nor listed as skipped.
 """
 
 from __future__ import annotations
@@ -43,6 +45,8 @@ IMAGE_SUFFIXES = frozenset({".png", ".bmp", ".tif", ".tiff", ".pgm", ".pbm", ".p
 #: so a renamed file of another kind (EPS, which Pillow hands to Ghostscript, for one) is never decoded.
 READ_FORMATS = ("PNG", "BMP", "TIFF", "PPM", "JPEG")
 LABELS_CSV = "labels.csv"
+#: Names (compared in lower case) of a folder's description, which is not a patch.
+README_NAMES = frozenset({"readme", "readme.md", "readme.txt"})
 #: Refuse .npz members bigger than this many bytes once decompressed (a zip bomb guard).
 MAX_NPZ_BYTES = 4 * 1024**3
 
@@ -352,7 +356,7 @@ def _collect_class_folders(folder: Path, col: _Collector) -> None:
             col.skip(entry, "symbolic link to a folder (not followed)")
         elif entry.is_symlink() and not entry.exists():
             col.skip(entry, "symbolic link whose target cannot be reached (missing, or a loop)")
-        elif entry.name != LABELS_CSV:
+        elif entry.name != LABELS_CSV and entry.name.lower() not in README_NAMES:
             col.skip(entry, "file outside any class folder")
 
 
@@ -585,7 +589,8 @@ def load_dataset(path: str | os.PathLike) -> Dataset:
                 parts.append(part)
             col.skipped.extend(Skipped(f"{part}/{s.path}", s.reason) for s in sub_col.skipped)
         for name in sorted(sub - {"train", "test"}):
-            col.skip(name, "outside train/ and test/ in a pre-split folder")
+            if name.lower() not in README_NAMES:
+                col.skip(name, "outside train/ and test/ in a pre-split folder")
         part_of = dict(zip(col.names, parts))
         images, labels, names = col.finish()
         subset = np.array([part_of[n] for n in names], dtype=str)
