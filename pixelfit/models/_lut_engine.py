@@ -62,6 +62,9 @@ TABLE_LIMIT = 1 << 25
 _MAX_TABLE_ORDER = 12
 #: Units handed to joblib per batch, per worker; progress and cancel happen between batches.
 UNITS_PER_BATCH = 4
+#: Searches smaller than this many words of AND + popcount run in the calling thread: below it,
+#: starting workers costs more than it saves (a k = 3 search on 10,000 9x9 patches is ~13M).
+PARALLEL_MIN_WORDS = 1 << 27
 
 ProgressFn = Callable[[int, int], None]
 CancelFn = Callable[[], bool]
@@ -106,7 +109,17 @@ def _weight_planes(X: np.ndarray) -> list[tuple[np.ndarray, int]]:
     n = len(X)
     if n < 128:
         return [(X, 1)]
-    distinct, mult = np.unique(X, axis=0, return_counts=True)
+    # Sort packed rows (a few uint64 each) rather than np.unique(X, axis=0): 10-20x faster.
+    rows = np.packbits(X, axis=1)
+    rows = np.pad(rows, ((0, 0), (0, -rows.shape[1] % 8))).view(np.uint64)
+    order = np.lexsort(rows.T[::-1])
+    ordered = rows[order]
+    first = np.ones(n, bool)
+    first[1:] = (ordered[1:] != ordered[:-1]).any(axis=1)
+    starts = np.flatnonzero(first)
+    if len(starts) > 0.75 * n:
+        return [(X, 1)]
+    distinct, mult = X[order[starts]], np.diff(np.append(starts, n))
     planes = []
     for b in range(int(mult.max()).bit_length()):
         rows = distinct[(mult >> b) & 1 == 1]
@@ -408,6 +421,8 @@ def exhaustive_best(
     """
     p = index.n_pixels
     total = n_combinations(p, k)
+    if total * index.n_words < PARALLEL_MIN_WORDS:
+        n_jobs = 1
     best_c = np.zeros((0, k), np.intp)
     best_e = np.zeros(0, np.int64)
     done = 0
