@@ -88,9 +88,15 @@ def test_every_set_scored_right_with_and_without_tables(rng, k, monkeypatch):
     X = rng.random((150, 9)) < 0.4
     y = rng.random(150) < 0.5
     combos, errs = brute_errors(X, y, k)
-    assert CountIndex(X, y).subset_errors(combos).tolist() == errs.tolist()
-    monkeypatch.setattr(engine, "TABLE_LIMIT", 0)  # no tables: every count by AND + popcount
-    assert CountIndex(X, y).subset_errors(combos).tolist() == errs.tolist()
+    with_tables = CountIndex(X, y)
+    for o in range(1, k + 1):
+        with_tables.table(o)
+    assert with_tables.subset_errors(combos).tolist() == errs.tolist()
+    assert CountIndex(X, y).subset_errors(combos).tolist() == errs.tolist()  # AND + popcount only
+    monkeypatch.setattr(engine, "TABLE_LIMIT", 0)  # no table fits: the search scores set by set
+    best, best_e, _ = exhaustive_best(CountIndex(X, y), k, keep=4)
+    order = np.argsort(errs, kind="stable")[:4]
+    assert best.tolist() == combos[order].tolist() and best_e.tolist() == errs[order].tolist()
 
 
 def test_units_cover_every_set_once_in_small_chunks(rng, monkeypatch):

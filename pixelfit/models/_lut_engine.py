@@ -23,9 +23,10 @@ together, vectorised over d:
 * N(T) for T inside P are per-prefix scalars read from the same tables.
 
 Patches are bit-packed per pixel column (``np.packbits`` to 64-bit words, ``np.bitwise_count``),
-both classes side by side in one word array so one AND serves both. Repeated patches are
-collapsed into weights when that shortens the word array: the distinct patches are split into
-bit planes of their multiplicity, and plane b counts 2^b times.
+both classes side by side in one word array so one AND serves both, and only the class
+difference of each count is kept (see :class:`CountIndex`). Repeated patches are collapsed into
+weights when that shortens the word array: the distinct patches are split into bit planes of
+their multiplicity, and plane b counts 2^b times.
 
 Work units and parallelism
 --------------------------
@@ -59,7 +60,7 @@ CHUNK_WORDS = 1 << 20
 #: Most entries one all-ones table may hold as int32 (128 MiB); larger orders are counted by
 #: AND + popcount where they are needed (beam search only).
 TABLE_LIMIT = 1 << 25
-_MAX_TABLE_ORDER = 12
+_MAX_TABLE_ORDER = 24
 #: Units handed to joblib per batch, per worker; progress and cancel happen between batches.
 UNITS_PER_BATCH = 4
 #: Searches smaller than this many words of AND + popcount run in the calling thread: below it,
@@ -102,12 +103,13 @@ def pack_columns(X: np.ndarray) -> np.ndarray:
 def _weight_planes(X: np.ndarray) -> list[tuple[np.ndarray, int]]:
     """Patches of one class as (rows, weight) groups whose weighted popcounts add up to the counts.
 
-    Plain (every patch once, weight 1) unless collapsing repeats into bit planes of their
-    multiplicity needs at most 3/4 of the words: each extra plane costs a reduction call, so a
-    small saving is not worth it.
+    Plain (every patch once, weight 1) unless collapsing repeats needs fewer words: distinct
+    patches go to bit planes of their multiplicity, plane b counting 2^b times (a patch seen 5
+    times sits in planes 0 and 2). The weights cost nothing extra: the kernel's reduction is one
+    product with a weight per word.
     """
     n = len(X)
-    if n < 128:
+    if n < 128:  # two words at most: nothing to gain
         return [(X, 1)]
     # Sort packed rows (a few uint64 each) rather than np.unique(X, axis=0): 10-20x faster.
     rows = np.packbits(X, axis=1)
@@ -117,7 +119,7 @@ def _weight_planes(X: np.ndarray) -> list[tuple[np.ndarray, int]]:
     first = np.ones(n, bool)
     first[1:] = (ordered[1:] != ordered[:-1]).any(axis=1)
     starts = np.flatnonzero(first)
-    if len(starts) > 0.75 * n:
+    if len(starts) == n:
         return [(X, 1)]
     distinct, mult = X[order[starts]], np.diff(np.append(starts, n))
     planes = []
@@ -125,7 +127,7 @@ def _weight_planes(X: np.ndarray) -> list[tuple[np.ndarray, int]]:
         rows = distinct[(mult >> b) & 1 == 1]
         if len(rows):
             planes.append((rows, 1 << b))
-    if sum(-(-len(r) // 64) for r, _ in planes) <= 0.75 * -(-n // 64):
+    if sum(-(-len(r) // 64) for r, _ in planes) < -(-n // 64):
         return planes
     return [(X, 1)]
 
@@ -188,9 +190,13 @@ class CountIndex:
         self.packed = np.ascontiguousarray(np.concatenate(blocks, axis=1))
         ftype = np.float32 if self.n_patches < 2**24 else np.float64
         self.word_weights = np.concatenate(weights).astype(ftype)
-        # Colex ranks need C(t, i) only for orders whose table fits (t < p, i <= _MAX_TABLE_ORDER).
-        self._binom = np.array([[min(comb(t, i), 2**62) for i in range(_MAX_TABLE_ORDER + 1)]
-                                for t in range(p + 1)], dtype=np.int64)
+        # Colex ranks need C(t, i) only for t <= p and orders whose table fits, where every value
+        # is below TABLE_LIMIT: float64 Pascal sums are exact there; larger entries are unused.
+        binom = np.zeros((p + 1, _MAX_TABLE_ORDER + 1))
+        binom[:, 0] = 1
+        for i in range(1, _MAX_TABLE_ORDER + 1):
+            binom[1:, i] = np.cumsum(binom[:-1, i - 1])  # C(t, i) = sum over s < t of C(s, i - 1)
+        self._binom = np.minimum(binom, 2.0**62).astype(np.int64)
         self._tables: dict[int, np.ndarray] = {}
         self._colex: dict[int, np.ndarray] = {}
 
@@ -237,12 +243,16 @@ class CountIndex:
         return self._count(acc[:, None, :] & self.packed[None, c + 1 :, :])
 
     def all_ones(self, T: np.ndarray) -> np.ndarray:
-        """D(T) for each sorted row of ``T`` (m, o) -> (m,) int32, from a table where one fits."""
+        """D(T) for each sorted row of ``T`` (m, o) -> (m,) int32, from a table if one is built.
+
+        Never builds one: workers may call this concurrently, and a table can cost more than
+        the lookups it would save.
+        """
         o = T.shape[1]
         if o == 0:
             return np.full(len(T), self.totals[1] - self.totals[0], np.int32)
-        if self.table_fits(o):
-            return self.table(o)[self.rank(T[:, :-1]), T[:, -1]]
+        if o in self._tables:
+            return self._tables[o][self.rank(T[:, :-1]), T[:, -1]]
         return self._count(self._prefix_and(T))
 
     # -- tables ------------------------------------------------------------------------------
@@ -297,11 +307,15 @@ class CountIndex:
         """Training errors of the k-subsets of one unit of (k - 1)-prefixes.
 
         Returns the prefixes (m, k - 1) and errors (m, n_pixels - 1 - c), int32: entry [i, j] is
-        the set prefixes[i] + {c + 1 + j}. Needs tables of orders < k built beforehand.
+        the set prefixes[i] + {c + 1 + j}. Fast when the tables of orders < k are built.
         """
         h, c = unit[0], unit[1]
         P = self.prefixes(unit)
         m, r = len(P), self.n_pixels - 1 - c
+        if any(o not in self._tables for o in range(1, h + 1)):
+            # Tables too large (many pixels and a large k): score the sets one by one instead.
+            combos = np.column_stack([np.repeat(P, r, axis=0), np.tile(np.arange(c + 1, self.n_pixels), m)])
+            return P, self.subset_errors(combos).reshape(m, r)
         M = 1 << h
         ones = np.empty((M, m, r), np.int32)  # D(T + {d}) for T inside P
         base = np.empty((M, m), np.int32)  # D(T)
@@ -429,7 +443,8 @@ def exhaustive_best(
     # The reductions are small BLAS products; BLAS's own threads only fight our workers for cores.
     with threadpool_limits(1, user_api="blas"):
         for o in range(1, k):
-            index.table(o, n_jobs=n_jobs, cancel=cancel)
+            if index.table_fits(o):
+                index.table(o, n_jobs=n_jobs, cancel=cancel)
         units = list(index.units(k - 1))
         for unit, (c, e) in run_units(_best_unit, index, units, n_jobs, cancel, keep):
             best_c, best_e = _lowest(np.concatenate([best_c, c]), np.concatenate([best_e, e]), keep)
