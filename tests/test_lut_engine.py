@@ -109,12 +109,19 @@ def test_units_cover_every_set_once_in_small_chunks(rng, monkeypatch):
     assert best_e.tolist() == np.sort(errs).tolist()
 
 
-def test_threads_give_the_same_answer(rng):
+def test_threads_give_the_same_answer_and_stop_on_cancel(rng, monkeypatch):
+    monkeypatch.setattr(engine, "PARALLEL_MIN_WORDS", 0)  # threads even for a small search
+    monkeypatch.setattr(engine, "CHUNK_WORDS", 64)
     X = rng.random((500, 16)) < 0.5
     y = X[:, 3] ^ X[:, 9] ^ (rng.random(500) < 0.2)
     one = exhaustive_best(CountIndex(X, y), 3, keep=5, n_jobs=1)
     two = exhaustive_best(CountIndex(X, y), 3, keep=5, n_jobs=2)
     assert one[0].tolist() == two[0].tolist() and one[1].tolist() == two[1].tolist()
+    seen = []
+    with pytest.raises(SearchCancelled):
+        exhaustive_best(CountIndex(X, y), 3, n_jobs=2, progress=lambda d, t: seen.append(d),
+                        cancel=lambda: len(seen) >= 3)
+    assert len(seen) == 3
 
 
 def test_one_class_only_every_set_is_perfect():

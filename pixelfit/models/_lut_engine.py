@@ -38,8 +38,9 @@ these loops), or any joblib backend the caller activates, e.g. a cluster engine'
     with joblib.parallel_config(backend="dask"):   # after dask.distributed.Client(...)
         rule.fit(X, y)
 
-There the index (packed columns and tables, a few MB) is sent to the workers with each batch.
-Progress is reported and cancellation checked between batches of units.
+There the index (packed columns and tables, a few MB) is pickled to the workers with the units
+(joblib memory-maps its arrays for a process backend), which pays only for long searches.
+Progress is reported and cancellation checked as each unit's result comes back.
 
 Pattern code convention: bit j of a pattern code is the value of the j-th pixel of the set, the
 pixel set being sorted ascending. Ties in training error go to the lexicographically first pixel
@@ -48,6 +49,7 @@ set (what a plain loop over ``itertools.combinations`` keeping the first strict 
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Callable, Iterator
 from math import comb
 
@@ -61,8 +63,6 @@ CHUNK_WORDS = 1 << 20
 #: AND + popcount where they are needed (beam search only).
 TABLE_LIMIT = 1 << 25
 _MAX_TABLE_ORDER = 24
-#: Units handed to joblib per batch, per worker; progress and cancel happen between batches.
-UNITS_PER_BATCH = 4
 #: Searches smaller than this many words of AND + popcount run in the calling thread: below it,
 #: starting workers costs more than it saves (a k = 3 search on 10,000 9x9 patches is ~13M).
 PARALLEL_MIN_WORDS = 1 << 27
@@ -385,21 +385,29 @@ def _lowest(combos: np.ndarray, errs: np.ndarray, keep: int) -> tuple[np.ndarray
 
 
 def run_units(func, index: CountIndex, units: list, n_jobs: int | None, cancel: CancelFn | None, *args):
-    """Yield (unit, func(index, unit, *args)) in order, in batches on joblib; cancel between batches."""
-    n_jobs = effective_n_jobs(n_jobs)
-    batch = max(1, n_jobs * UNITS_PER_BATCH)
-    if n_jobs == 1:
-        for i, unit in enumerate(units):
-            if i % batch == 0 and cancel is not None and cancel():
+    """Yield (unit, func(index, unit, *args)) in order; on joblib workers when n_jobs > 1.
+
+    ``cancel`` is polled before each result is taken; True raises :class:`SearchCancelled`, and
+    leaving the generator stops joblib from dispatching the remaining units.
+    """
+    if effective_n_jobs(n_jobs) == 1:
+        for unit in units:
+            if cancel is not None and cancel():
                 raise SearchCancelled
             yield unit, func(index, unit, *args)
         return
-    with Parallel(n_jobs=n_jobs, prefer="threads") as parallel:
-        for s in range(0, len(units), batch):
+    parallel = Parallel(n_jobs=n_jobs, prefer="threads", return_as="generator")
+    results = parallel(delayed(func)(index, u, *args) for u in units)
+    try:
+        for unit, result in zip(units, results):
             if cancel is not None and cancel():
                 raise SearchCancelled
-            part = units[s : s + batch]
-            yield from zip(part, parallel(delayed(func)(index, u, *args) for u in part))
+            yield unit, result
+    finally:
+        with warnings.catch_warnings():
+            # joblib warns when a cancelled search leaves finished units unread; that is the point.
+            warnings.filterwarnings("ignore", message=".*tasks have been successfully executed", category=UserWarning)
+            results.close()
 
 
 def exhaustive_best(
@@ -419,9 +427,9 @@ def exhaustive_best(
     keep : int
         How many of the best sets to return.
     progress : callable (done, total), optional
-        Called between batches with the number of sets scored so far.
+        Called after each unit with the number of sets scored so far.
     cancel : callable () -> bool, optional
-        Polled between batches; True raises :class:`SearchCancelled`.
+        Polled between units; True raises :class:`SearchCancelled`.
     n_jobs : int or None
         joblib workers (threads unless a backend is active); -1 for all cores.
 
