@@ -30,7 +30,7 @@ from PIL import Image
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 sys.path.insert(0, ROOT)
 
-from pixelfit.data import load_dataset  # noqa: E402
+from pixelfit.data import load_dataset
 
 CHILD = """
 import resource, sys, time

@@ -20,10 +20,10 @@ import numpy as np
 
 sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
-from pixelfit.data import Binarizer  # noqa: E402
-from pixelfit.data._import import Dataset  # noqa: E402
-from pixelfit.ladder import prepare, run_ladder  # noqa: E402
-from pixelfit.models import FAMILY_ORDER, plan_rungs  # noqa: E402
+from pixelfit.data import Binarizer
+from pixelfit.data._import import Dataset
+from pixelfit.ladder import prepare, run_ladder
+from pixelfit.models import FAMILY_ORDER, plan_rungs
 
 
 def make_dataset(n: int, side: int, seed: int) -> Dataset:

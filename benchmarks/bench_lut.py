@@ -31,8 +31,8 @@ import numpy as np
 
 sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
-from pixelfit.models import LutRule  # noqa: E402
-from pixelfit.models._lut_engine import CountIndex, exhaustive_best, pack_columns  # noqa: E402
+from pixelfit.models import LutRule
+from pixelfit.models._lut_engine import CountIndex, exhaustive_best, pack_columns
 
 
 def make_patches(n: int, side: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
@@ -99,8 +99,8 @@ def popcount_limit(X, y, k, repeat):
 def part1(X, y, args):
     print("\n1. engine vs per-subset bincount loop")
     for k in (2, 3):
-        t_loop, ref = best_of(lambda: loop_search(X, y, k), 1)
-        t_eng, got = best_of(lambda: engine_search(X, y, k, args.n_jobs), args.repeat)
+        t_loop, ref = best_of(lambda k=k: loop_search(X, y, k), 1)
+        t_eng, got = best_of(lambda k=k: engine_search(X, y, k, args.n_jobs), args.repeat)
         print(f"   k={k}: {comb(X.shape[1], k):>9,} sets  loop {t_loop:8.3f} s (once)  engine {t_eng:7.3f} s  "
               f"ratio {t_loop / t_eng:7.1f}x  optimum {'identical' if ref == got else f'DIFFERENT {ref} vs {got}'}"
               f" {got}")
@@ -112,10 +112,10 @@ def part2(X, y, args):
     print("\n2. engine vs the popcount limit (AND + popcount of n/64 words per set per class)")
     for k in (4,):
         t_lim = popcount_limit(X, y, k, args.repeat)
-        t_eng, got = best_of(lambda: engine_search(X, y, k, args.n_jobs), args.repeat)
+        t_eng, got = best_of(lambda k=k: engine_search(X, y, k, args.n_jobs), args.repeat)
         print(f"   k={k}: limit {t_lim:7.3f} s  engine {t_eng:7.3f} s  engine/limit {t_eng / t_lim:5.2f}")
         if args.n_jobs != 1:
-            t_one, _ = best_of(lambda: engine_search(X, y, k, 1), args.repeat)
+            t_one, _ = best_of(lambda k=k: engine_search(X, y, k, 1), args.repeat)
             print(f"        one thread {t_one:7.3f} s  ({t_one / t_eng:4.2f}x from n_jobs={args.n_jobs})")
     if not args.skip_k5:
         t5, got = best_of(lambda: engine_search(X, y, 5, args.n_jobs), 1)

@@ -180,7 +180,7 @@ def test_progress_reaches_the_total_and_cancel_stops(rng, monkeypatch):
     seen = []
     exhaustive_best(CountIndex(X, y), 3, progress=lambda d, t: seen.append((d, t)))
     assert seen[-1] == (comb(20, 3), comb(20, 3))
-    assert all(b[0] > a[0] for a, b in zip(seen, seen[1:]))
+    assert all(b[0] > a[0] for a, b in itertools.pairwise(seen))
     calls = []
 
     def cancel():

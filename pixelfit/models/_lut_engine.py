@@ -57,7 +57,7 @@ import numpy as np
 from joblib import Parallel, delayed, effective_n_jobs
 from threadpoolctl import threadpool_limits
 
-#: uint64 words in one unit's AND buffer (8 MiB): bounds memory per worker.
+#: Words in one unit's AND buffer (uint64, 8 MiB) and pattern-count array: bounds memory per worker.
 CHUNK_WORDS = 1 << 20
 #: Most entries one all-ones table may hold as int32 (128 MiB); larger orders are counted by
 #: AND + popcount where they are needed (beam search only).
@@ -287,9 +287,11 @@ class CountIndex:
         if h == 0:
             yield (0, -1, 0, 1)
             return
+        # Per set a unit holds n_words AND words and 2^h pattern counts: bound the larger.
+        per_set = max(1, self.n_words, 1 << h)
         for c in range(h - 1, p - 1):
             count, r = comb(c, h - 1), p - 1 - c
-            step = max(1, CHUNK_WORDS // max(1, r * self.n_words))
+            step = max(1, CHUNK_WORDS // (r * per_set))
             for lo in range(0, count, step):
                 yield (h, c, lo, min(count, lo + step))
 
