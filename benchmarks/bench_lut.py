@@ -13,6 +13,8 @@ Parts (numbers are wall-clock seconds, best of ``--repeat`` runs unless marked "
    class, on prepacked contiguous words, nothing else. Goal: within 3x; k = 5 under a minute.
 3. scikit-learn's SequentialFeatureSelector (depth-3 tree, 3 features, cv = 5) vs the exhaustive
    k = 3 rule: time ratio (goal >= 30x) and training errors (ours must not be higher).
+4. repeated patches (the same number drawn from only 300 distinct ones): k = 4 with duplicates
+   collapsed into weights vs with every patch packed once.
 
 The data are invented: smooth random blobs with noise, labelled by a hidden 3-pixel rule with
 10 % label noise, so the search has a real optimum and many near-ties.
@@ -32,6 +34,7 @@ import numpy as np
 sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
 from pixelfit.models import LutRule
+from pixelfit.models import _lut_engine
 from pixelfit.models._lut_engine import CountIndex, exhaustive_best, pack_columns
 
 
@@ -146,20 +149,37 @@ def part3(X, y, args):
     print(f"   time ratio {t_sfs / t_ours:6.1f}x   errors ours <= theirs: {e_ours <= e_sfs}")
 
 
+def part4(X, y, args):
+    print("\n4. repeated patches: duplicates collapsed into weights vs packed one by one (k=4)")
+    rows = np.random.default_rng(1).integers(0, 300, len(X))
+    Xr, yr = X[rows], y[rows]
+    t_w, got_w = best_of(lambda: engine_search(Xr, yr, 4, args.n_jobs), args.repeat)
+    words = CountIndex(Xr, yr).n_words
+    collapse = _lut_engine._weight_planes
+    _lut_engine._weight_planes = lambda Xc: [(Xc, 1)]
+    try:
+        t_p, got_p = best_of(lambda: engine_search(Xr, yr, 4, args.n_jobs), args.repeat)
+        plain = CountIndex(Xr, yr).n_words
+    finally:
+        _lut_engine._weight_planes = collapse
+    print(f"   {words} words instead of {plain}: collapsed {t_w:.3f} s, plain {t_p:.3f} s, "
+          f"ratio {t_p / t_w:.1f}x, optimum {'identical' if got_w == got_p else 'DIFFERENT'}")
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--patches", type=int, default=10_000)
     ap.add_argument("--side", type=int, default=9)
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--n-jobs", type=int, default=-1)
-    ap.add_argument("--parts", default="1,2,3")
+    ap.add_argument("--parts", default="1,2,3,4")
     ap.add_argument("--skip-k5", action="store_true")
     ap.add_argument("--seed", type=int, default=7)
     args = ap.parse_args(argv)
     X, y = make_patches(args.patches, args.side, args.seed)
     print(f"{args.patches:,} patches of {args.side}x{args.side}, {int(y.sum()):,} positive; "
           f"n_jobs={args.n_jobs}, cpus={os.cpu_count()}, load average {os.getloadavg()[0]:.2f}")
-    parts = {"1": part1, "2": part2, "3": part3}
+    parts = {"1": part1, "2": part2, "3": part3, "4": part4}
     for p in args.parts.split(","):
         parts[p.strip()](X, y, args)
 
