@@ -191,3 +191,16 @@ def test_progress_reaches_the_total_and_cancel_stops(rng, monkeypatch):
         exhaustive_best(CountIndex(X, y), 3, cancel=cancel)
     with pytest.raises(SearchCancelled):
         LutRule(k=3).fit(X, y, cancel=lambda: True)
+
+
+def test_rule_falls_back_to_a_beam_that_reports_its_own_error_and_cancels(rng):
+    X = rng.random((300, 30)) < 0.5
+    y = (X[:, 4] & X[:, 11]) ^ (rng.random(300) < 0.15)
+    rule = LutRule(k=3, max_exhaustive=500, beam_width=8).fit(X, y)  # C(30, 3) = 4060 > 500
+    assert rule.search_ == "beam"
+    assert rule.train_errors_ == int(np.minimum(rule.counts_[:, 0], rule.counts_[:, 1]).sum())
+    stepped = []  # the rule reports progress only from the beam: cancel once it has stepped
+    with pytest.raises(SearchCancelled):
+        LutRule(k=4, max_exhaustive=500, beam_width=8).fit(
+            X, y, progress=lambda d, t: stepped.append(d), cancel=lambda: bool(stepped))
+    assert stepped == [1]
