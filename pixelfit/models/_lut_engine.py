@@ -308,7 +308,7 @@ class CountIndex:
     def unit_errors(self, unit: tuple[int, int, int, int]) -> tuple[np.ndarray, np.ndarray]:
         """Training errors of the k-subsets of one unit of (k - 1)-prefixes.
 
-        Returns the prefixes (m, k - 1) and errors (m, n_pixels - 1 - c), int32: entry [i, j] is
+        Returns the prefixes (m, k - 1) and errors (m, n_pixels - 1 - c), int64: entry [i, j] is
         the set prefixes[i] + {c + 1 + j}. Fast when the tables of orders < k are built.
         """
         h, c = unit[0], unit[1]
