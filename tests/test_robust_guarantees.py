@@ -116,13 +116,15 @@ def test_unusable_out_folder_refused_before_training(small_npz, tmp_path, capsys
 
 # ---- nothing from a file is executed ------------------------------------------------------------
 
-FORBIDDEN_MODULES = {"pickle", "cPickle", "_pickle", "dill", "cloudpickle", "joblib", "shelve", "marshal"}
+FORBIDDEN_MODULES = {"pickle", "cPickle", "_pickle", "dill", "cloudpickle", "shelve", "marshal"}
+# joblib's parallel loops are fine (the lut search uses them); its file loading unpickles.
+JOBLIB_LOADERS = {"load", "Memory"}
 FORBIDDEN_CALLS = {"eval", "exec", "compile", "__import__"}
 
 
 def unsafe_uses(source: str, filename: str = "<source>") -> list[str]:
-    """Every import of a pickling module, call of eval/exec/compile/__import__, and numpy load
-    that does not say ``allow_pickle=False``, as 'file:line what'."""
+    """Every import of a pickling module or of joblib's loaders, call of eval/exec/compile/__import__,
+    joblib.load, and numpy load that does not say ``allow_pickle=False``, as 'file:line what'."""
     found = []
     for node in ast.walk(ast.parse(source, filename)):
         where = f"{filename}:{getattr(node, 'lineno', '?')}"
@@ -130,6 +132,8 @@ def unsafe_uses(source: str, filename: str = "<source>") -> list[str]:
             found += [f"{where} import {a.name}" for a in node.names if a.name.split(".")[0] in FORBIDDEN_MODULES]
         elif isinstance(node, ast.ImportFrom) and node.module and node.module.split(".")[0] in FORBIDDEN_MODULES:
             found.append(f"{where} from {node.module} import")
+        elif isinstance(node, ast.ImportFrom) and node.module and node.module.split(".")[0] == "joblib":
+            found += [f"{where} from joblib import {a.name}" for a in node.names if a.name in JOBLIB_LOADERS]
         elif isinstance(node, ast.Call):
             f = node.func
             if isinstance(f, ast.Name) and f.id in FORBIDDEN_CALLS:
@@ -137,6 +141,9 @@ def unsafe_uses(source: str, filename: str = "<source>") -> list[str]:
             elif isinstance(f, ast.Attribute) and f.attr in FORBIDDEN_CALLS and isinstance(f.value, ast.Name) \
                     and f.value.id == "builtins":
                 found.append(f"{where} builtins.{f.attr}(")
+            elif isinstance(f, ast.Attribute) and f.attr in JOBLIB_LOADERS and isinstance(f.value, ast.Name) \
+                    and f.value.id == "joblib":
+                found.append(f"{where} joblib.{f.attr}(")
             elif isinstance(f, ast.Attribute) and f.attr == "load" and isinstance(f.value, ast.Name) \
                     and f.value.id in ("np", "numpy"):
                 safe = any(k.arg == "allow_pickle" and isinstance(k.value, ast.Constant) and k.value.value is False
@@ -147,7 +154,7 @@ def unsafe_uses(source: str, filename: str = "<source>") -> list[str]:
 
 
 @pytest.mark.parametrize("snippet", [
-    "import pickle", "import joblib", "from joblib import load", "import cloudpickle as cp",
+    "import pickle", "joblib.load(path)", "from joblib import load", "import cloudpickle as cp",
     "x = eval(text)", "exec(code)", "builtins.eval(s)", "compile(s, 'f', 'exec')",
     "np.load(path)", "np.load(path, allow_pickle=True)", "numpy.load(p, allow_pickle=flag)",
 ])
@@ -156,7 +163,7 @@ def test_scanner_finds_each_unsafe_use(snippet):
 
 
 @pytest.mark.parametrize("snippet", [
-    "np.load(path, allow_pickle=False)", "re.compile('x')", "model.evaluate(x)", "s = 'pickle eval('",
+    "np.load(path, allow_pickle=False)", "from joblib import Parallel, delayed", "re.compile('x')", "model.evaluate(x)", "s = 'pickle eval('",
     "# eval(x) in a comment",
 ])
 def test_scanner_lets_safe_code_through(snippet):

@@ -6,32 +6,77 @@ the training patches that show it, so the optimal training error of S is
     sum over patterns v of min(n_pos(v), n_neg(v)).
 
 The pattern counts are never built per subset. For each class we count, for every T subset of
-S, the patches whose pixels in T are all 1 (the "all-ones" count N(T)), then recover the exact
-pattern counts by Moebius inversion over the subset lattice. N(T) for |T| <= 3 comes from dense
-tables built once with matrix products; larger T from AND + popcount over bit-packed pixel
-columns (``np.packbits`` to 64-bit words, ``np.bitwise_count``).
+S, the patches whose pixels in T are all 1 (the "all-ones" count N(T)) and recover the exact
+pattern counts by Moebius inversion over the subset lattice.
+
+How the work is shared between subsets
+--------------------------------------
+Write S = P + {d} with d its largest pixel. All subsets with the same prefix P are scored
+together, vectorised over d:
+
+* N(P + {d}) for every d > max(P) is one AND of P's packed columns (computed once per prefix)
+  with each later column, then a popcount: this is the only work that grows with the number of
+  patches, one AND + popcount of n/64 words per subset.
+* N(T + {d}) for the proper subsets T of P are lower-order counts, read as contiguous row slices
+  of all-ones tables built level by level with the same kernel (table of order o: one row per
+  (o-1)-set T in colex order, one column per pixel d).
+* N(T) for T inside P are per-prefix scalars read from the same tables.
+
+Patches are bit-packed per pixel column (``np.packbits`` to 64-bit words, ``np.bitwise_count``),
+both classes side by side in one word array so one AND serves both, and only the class
+difference of each count is kept (see :class:`CountIndex`). Repeated patches are collapsed into
+weights when that shortens the word array: the distinct patches are split into bit planes of
+their multiplicity, and plane b counts 2^b times.
+
+Work units and parallelism
+--------------------------
+The subsets are cut into units (one prefix-maximum c and a block of prefixes), each with a bounded
+AND buffer (:data:`CHUNK_WORDS`). A unit is a pure function of the read-only :class:`CountIndex`
+and returns small arrays, so units run on joblib: threads by default (numpy releases the GIL in
+these loops), or any joblib backend the caller activates, e.g. a cluster engine's::
+
+    with joblib.parallel_config(backend="dask"):   # after dask.distributed.Client(...)
+        rule.fit(X, y)
+
+There the index (packed columns and tables, a few MB) is pickled to the workers with the units
+(joblib memory-maps its arrays for a process backend), which pays only for long searches.
+Progress is reported and cancellation checked as each unit's result comes back.
 
 Pattern code convention: bit j of a pattern code is the value of the j-th pixel of the set, the
-pixel set being sorted ascending. Candidate order is lexicographic, and ties in training error go
-to the first set in that order (what a plain loop over ``itertools.combinations`` keeping the
-first strict minimum gives).
+pixel set being sorted ascending. Ties in training error go to the lexicographically first pixel
+set (what a plain loop over ``itertools.combinations`` keeping the first strict minimum gives).
 """
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Callable, Iterator
-from dataclasses import dataclass
+from math import comb
 
 import numpy as np
+from joblib import Parallel, delayed, effective_n_jobs
+from threadpoolctl import threadpool_limits
 
-#: Rows of candidate sets scored per step; bounds memory and sets the progress granularity.
-CHUNK = 8192
-#: Largest order kept as a dense all-ones table (memory p^order).
-TABLE_ORDER = 3
+#: Words in one unit's AND buffer (uint64, 8 MiB) and pattern-count array: bounds memory per worker.
+CHUNK_WORDS = 1 << 20
+#: Most entries one all-ones table may hold as int32 (128 MiB); larger orders are counted by
+#: AND + popcount where they are needed (beam search only).
+TABLE_LIMIT = 1 << 25
+_MAX_TABLE_ORDER = 24
+#: Searches smaller than this many words of AND + popcount run in the calling thread: below it,
+#: starting workers costs more than it saves (a k = 3 search on 10,000 9x9 patches is ~13M).
+PARALLEL_MIN_WORDS = 1 << 27
+
+ProgressFn = Callable[[int, int], None]
+CancelFn = Callable[[], bool]
 
 
 class SearchCancelled(Exception):
     """Raised inside a search when its cancel callback returns True."""
+
+
+def n_combinations(p: int, k: int) -> int:
+    return comb(p, k)
 
 
 def pack_columns(X: np.ndarray) -> np.ndarray:
@@ -43,11 +88,11 @@ def pack_columns(X: np.ndarray) -> np.ndarray:
 
     Returns
     -------
-    ndarray of shape (n_pixels, n_words), uint64
+    ndarray of shape (n_pixels, ceil(n_patches / 64)), uint64; padding bits are 0.
     """
     X = np.asarray(X, dtype=bool)
     n, p = X.shape
-    n_words = max(1, -(-n // 64))
+    n_words = -(-n // 64)
     packed = np.packbits(X.T, axis=1, bitorder="little")
     pad = n_words * 8 - packed.shape[1]
     if pad:
@@ -55,167 +100,372 @@ def pack_columns(X: np.ndarray) -> np.ndarray:
     return np.ascontiguousarray(packed).view(np.uint64).reshape(p, n_words)
 
 
-@dataclass
-class ClassCounts:
-    """Everything needed to count patterns of one class: packed columns and low-order tables."""
+def _weight_planes(X: np.ndarray) -> list[tuple[np.ndarray, int]]:
+    """Patches of one class as (rows, weight) groups whose weighted popcounts add up to the counts.
 
-    n: int
-    packed: np.ndarray  # (p, words) uint64
-    tables: list[np.ndarray]  # tables[o] has o axes of length p: all-ones counts of o pixels
-
-    @classmethod
-    def build(cls, X: np.ndarray, max_order: int) -> ClassCounts:
-        X = np.asarray(X, dtype=bool)
-        n, p = X.shape
-        # float64 matrix products are exact for counts far beyond any patch set pixelfit handles
-        Xf = X.astype(np.float64)
-        tables: list[np.ndarray] = [np.array(float(n))]
-        if max_order >= 1:
-            tables.append(Xf.sum(axis=0))
-        if max_order >= 2:
-            tables.append(Xf.T @ Xf)
-        if max_order >= 3:
-            t3 = np.empty((p, p, p))
-            for i in range(p):
-                t3[i] = (Xf * Xf[:, i : i + 1]).T @ Xf
-            tables.append(t3)
-        return cls(n, pack_columns(X), [np.rint(t).astype(np.int64) for t in tables])
-
-
-def _popcount_and(packed: np.ndarray, cols: np.ndarray) -> np.ndarray:
-    """Popcount of the AND of the given columns, per row of ``cols`` (m, order)."""
-    acc = packed[cols[:, 0]]
-    for j in range(1, cols.shape[1]):
-        acc = acc & packed[cols[:, j]]
-    return np.bitwise_count(acc).sum(axis=1, dtype=np.int64)
+    Plain (every patch once, weight 1) unless collapsing repeats needs fewer words: distinct
+    patches go to bit planes of their multiplicity, plane b counting 2^b times (a patch seen 5
+    times sits in planes 0 and 2). The weights cost nothing extra: the kernel's reduction is one
+    product with a weight per word.
+    """
+    n = len(X)
+    if n < 128:  # two words at most: nothing to gain
+        return [(X, 1)]
+    # Sort packed rows (a few uint64 each) rather than np.unique(X, axis=0): 10-20x faster.
+    rows = np.packbits(X, axis=1)
+    rows = np.pad(rows, ((0, 0), (0, -rows.shape[1] % 8))).view(np.uint64)
+    order = np.lexsort(rows.T[::-1])
+    ordered = rows[order]
+    first = np.ones(n, bool)
+    first[1:] = (ordered[1:] != ordered[:-1]).any(axis=1)
+    starts = np.flatnonzero(first)
+    if len(starts) == n:
+        return [(X, 1)]
+    distinct, mult = X[order[starts]], np.diff(np.append(starts, n))
+    planes = []
+    for b in range(int(mult.max()).bit_length()):
+        rows = distinct[(mult >> b) & 1 == 1]
+        if len(rows):
+            planes.append((rows, 1 << b))
+    if sum(-(-len(r) // 64) for r, _ in planes) < -(-n // 64):
+        return planes
+    return [(X, 1)]
 
 
-def _subset_masks(k: int) -> list[list[int]]:
-    return [[j for j in range(k) if mask >> j & 1] for mask in range(2**k)]
+def colex_subsets(p: int, j: int) -> np.ndarray:
+    """All j-subsets of range(p) in colex order (by largest element, then the next, ...).
+
+    Returns ndarray of shape (C(p, j), j), int32, rows ascending. The j-subsets of range(c) are
+    the first C(c, j) rows, and the colex rank of {t_1 < ... < t_j} is sum_i C(t_i, i).
+    """
+    if j == 0:
+        return np.zeros((1, 0), np.int32)
+    prev = colex_subsets(p, j - 1)
+    blocks = [np.column_stack([prev[: comb(c, j - 1)], np.full(comb(c, j - 1), c, np.int32)])
+              for c in range(j - 1, p)]
+    return np.concatenate(blocks) if blocks else np.zeros((0, j), np.int32)
 
 
-def pattern_counts(cc: ClassCounts, combos: np.ndarray) -> np.ndarray:
-    """Exact pattern counts of one class for each pixel set.
+class CountIndex:
+    """Packed pixel columns of both classes and their all-ones count tables.
+
+    Only differences between the classes are kept: with D(v) = n_pos(v) - n_neg(v) the error
+    sum_v min(n_pos(v), n_neg(v)) equals (n - sum_v |D(v)|) / 2, and D follows from the
+    differences of all-ones counts by the same (linear) Moebius inversion. One count per subset
+    instead of two halves the table lookups and the inversion work.
 
     Parameters
     ----------
-    cc : ClassCounts
-    combos : ndarray of shape (m, k), int, each row sorted ascending
+    X : ndarray of shape (n_patches, n_pixels), bool
+    y : ndarray of shape (n_patches,), bool
+        True for the positive class.
 
-    Returns
-    -------
-    ndarray of shape (m, 2^k), int64: entry [i, code] counts the class's patches showing ``code``
-    on pixel set ``combos[i]``.
+    Attributes
+    ----------
+    n_pixels : int
+    n_patches : int
+    totals : ndarray of shape (2,), int64
+        Patches per class, [negatives, positives].
+    packed : ndarray of shape (n_pixels, n_words), uint64
+        Columns of every weight plane of both classes, side by side.
+    word_weights : ndarray of shape (n_words,), float
+        What one set bit of each word adds to a difference count: +weight for positive words,
+        -weight for negative ones. Float so the reduction is one BLAS product; exact because
+        every partial sum is an integer of magnitude at most n_patches < 2^24 (float32) or
+        2^53 (float64).
     """
-    m, k = combos.shape
-    N = np.empty((m, 2**k), np.int64)
-    for mask, members in enumerate(_subset_masks(k)):
-        order = len(members)
-        if order == 0:
-            N[:, 0] = cc.n
-        elif order < len(cc.tables):
-            N[:, mask] = cc.tables[order][tuple(combos[:, j] for j in members)]
-        else:
-            N[:, mask] = _popcount_and(cc.packed, combos[:, members])
-    # Moebius inversion: from "all ones on T" counts to exact pattern counts.
-    for b in range(k):
-        bit = 1 << b
-        lo = np.array([mask for mask in range(2**k) if not mask & bit])
-        N[:, lo] -= N[:, lo | bit]
-    return N
+
+    def __init__(self, X: np.ndarray, y: np.ndarray):
+        X = np.asarray(X, dtype=bool)
+        y = np.asarray(y, dtype=bool)
+        self.n_pixels = p = X.shape[1]
+        self.n_patches = len(y)
+        self.totals = np.array([np.sum(~y), np.sum(y)], np.int64)
+        blocks, weights = [], []
+        for sign, Xc in ((-1, X[~y]), (1, X[y])):
+            for rows, weight in _weight_planes(Xc):
+                block = pack_columns(rows)
+                blocks.append(block)
+                weights.append(np.full(block.shape[1], sign * weight))
+        self.packed = np.ascontiguousarray(np.concatenate(blocks, axis=1))
+        ftype = np.float32 if self.n_patches < 2**24 else np.float64
+        self.word_weights = np.concatenate(weights).astype(ftype)
+        # Colex ranks need C(t, i) only for t <= p and orders whose table fits, where every value
+        # is below TABLE_LIMIT: float64 Pascal sums are exact there; larger entries are unused.
+        binom = np.zeros((p + 1, _MAX_TABLE_ORDER + 1))
+        binom[:, 0] = 1
+        for i in range(1, _MAX_TABLE_ORDER + 1):
+            binom[1:, i] = np.cumsum(binom[:-1, i - 1])  # C(t, i) = sum over s < t of C(s, i - 1)
+        self._binom = np.minimum(binom, 2.0**62).astype(np.int64)
+        self._tables: dict[int, np.ndarray] = {}
+        self._colex: dict[int, np.ndarray] = {}
+
+    @property
+    def n_words(self) -> int:
+        return self.packed.shape[1]
+
+    # -- helpers -----------------------------------------------------------------------------
+
+    def rank(self, T: np.ndarray) -> np.ndarray:
+        """Colex rank of each sorted row of ``T`` (m, j) among the j-subsets."""
+        r = np.zeros(len(T), np.intp)
+        for i in range(T.shape[1]):
+            r += self._binom[T[:, i], i + 1]
+        return r
+
+    def colex(self, j: int) -> np.ndarray:
+        if j not in self._colex:
+            self._colex[j] = colex_subsets(self.n_pixels, j)
+        return self._colex[j]
+
+    def _count(self, words: np.ndarray) -> np.ndarray:
+        """Difference counts from ANDed words (..., n_words) -> (...), int32."""
+        bits = np.bitwise_count(words)
+        flat = bits.reshape(-1, self.n_words).astype(self.word_weights.dtype)
+        return np.rint(flat @ self.word_weights).astype(np.int32).reshape(bits.shape[:-1])
+
+    def _prefix_and(self, P: np.ndarray) -> np.ndarray:
+        """AND of the packed columns of each prefix row (m, j) -> (m, n_words)."""
+        if P.shape[1] == 0:
+            return np.full((len(P), self.n_words), np.uint64(0xFFFFFFFFFFFFFFFF))
+        acc = self.packed[P[:, 0]]
+        for j in range(1, P.shape[1]):
+            acc &= self.packed[P[:, j]]
+        return acc
+
+    def top_counts(self, P: np.ndarray, c: int) -> np.ndarray:
+        """D(P + {d}) for each prefix row of ``P`` (m, j) and every pixel d > c.
+
+        Returns ndarray of shape (m, n_pixels - 1 - c), int32. This is the kernel: one AND and
+        one popcount of ``n_words`` words per (prefix, d).
+        """
+        acc = self._prefix_and(P)
+        return self._count(acc[:, None, :] & self.packed[None, c + 1 :, :])
+
+    def all_ones(self, T: np.ndarray) -> np.ndarray:
+        """D(T) for each sorted row of ``T`` (m, o) -> (m,) int32, from a table if one is built.
+
+        Never builds one: workers may call this concurrently, and a table can cost more than
+        the lookups it would save.
+        """
+        o = T.shape[1]
+        if o == 0:
+            return np.full(len(T), self.totals[1] - self.totals[0], np.int32)
+        if o in self._tables:
+            return self._tables[o][self.rank(T[:, :-1]), T[:, -1]]
+        return self._count(self._prefix_and(T))
+
+    # -- tables ------------------------------------------------------------------------------
+
+    def table_fits(self, o: int) -> bool:
+        return o - 1 <= _MAX_TABLE_ORDER and comb(self.n_pixels, o - 1) * self.n_pixels <= TABLE_LIMIT
+
+    def table(self, o: int, n_jobs: int | None = 1, cancel: CancelFn | None = None) -> np.ndarray:
+        """Difference all-ones counts of order ``o`` >= 1: entry [rank(T), d] = D(T + {d}), d > max(T).
+
+        Returns ndarray of shape (C(n_pixels, o - 1), n_pixels), int32 (entries with d <= max(T)
+        are unused). Built once and kept.
+        """
+        if o not in self._tables:
+            if not self.table_fits(o):
+                raise MemoryError(f"all-ones table of order {o} over {self.n_pixels} pixels is too large")
+            L = np.zeros((comb(self.n_pixels, o - 1), self.n_pixels), np.int32)
+            units = list(self.units(o - 1))
+            for unit, block in run_units(_table_unit, self, units, n_jobs, cancel):
+                _, c, lo, hi = unit
+                start = comb(c, o - 1) if c >= 0 else 0
+                L[start + lo : start + hi, c + 1 :] = block
+            self._tables[o] = L
+        return self._tables[o]
+
+    def units(self, h: int) -> Iterator[tuple[int, int, int, int]]:
+        """Work units over the h-prefixes: (h, c, lo, hi) = prefixes colex(h - 1)[lo:hi] + {c}.
+
+        Every (h + 1)-subset is P + {d} for exactly one unit's prefix P and one d > c.
+        """
+        p = self.n_pixels
+        if h == 0:
+            yield (0, -1, 0, 1)
+            return
+        # Per set a unit holds n_words AND words and 2^h pattern counts: bound the larger.
+        per_set = max(1, self.n_words, 1 << h)
+        for c in range(h - 1, p - 1):
+            count, r = comb(c, h - 1), p - 1 - c
+            step = max(1, CHUNK_WORDS // (r * per_set))
+            for lo in range(0, count, step):
+                yield (h, c, lo, min(count, lo + step))
+
+    def prefixes(self, unit: tuple[int, int, int, int]) -> np.ndarray:
+        """The prefixes (m, h) of a unit, int32, each row ascending."""
+        h, c, lo, hi = unit
+        if h == 0:
+            return np.zeros((1, 0), np.int32)
+        S = self.colex(h - 1)[lo:hi]
+        return np.column_stack([S, np.full(len(S), c, np.int32)])
+
+    # -- scoring -----------------------------------------------------------------------------
+
+    def unit_errors(self, unit: tuple[int, int, int, int]) -> tuple[np.ndarray, np.ndarray]:
+        """Training errors of the k-subsets of one unit of (k - 1)-prefixes.
+
+        Returns the prefixes (m, k - 1) and errors (m, n_pixels - 1 - c), int64: entry [i, j] is
+        the set prefixes[i] + {c + 1 + j}. Fast when the tables of orders < k are built.
+        """
+        h, c = unit[0], unit[1]
+        P = self.prefixes(unit)
+        m, r = len(P), self.n_pixels - 1 - c
+        if any(o not in self._tables for o in range(1, h + 1)):
+            # Tables too large (many pixels and a large k): score the sets one by one instead.
+            combos = np.column_stack([np.repeat(P, r, axis=0), np.tile(np.arange(c + 1, self.n_pixels), m)])
+            return P, self.subset_errors(combos).reshape(m, r)
+        M = 1 << h
+        ones = np.empty((M, m, r), np.int32)  # D(T + {d}) for T inside P
+        base = np.empty((M, m), np.int32)  # D(T)
+        for mask in range(M):
+            T = P[:, [j for j in range(h) if mask >> j & 1]]
+            base[mask] = self.all_ones(T)
+            if mask == M - 1:
+                ones[mask] = self.top_counts(P, c)
+            else:
+                ones[mask] = self._tables[T.shape[1] + 1][:, c + 1 :][self.rank(T)]
+        _moebius(ones, h)
+        _moebius(base, h)
+        # Per pattern v of P, |D(v, d=1)| + |D(v, d=0)| with D(v, d=0) = D(v) - D(v, d=1); and
+        # |a| + |b - a| = max(|b|, |2a - b|).
+        ones *= 2
+        ones -= base[..., None]
+        np.abs(ones, out=ones)
+        np.maximum(ones, np.abs(base)[..., None], out=ones)
+        return P, (self.n_patches - ones.sum(axis=0, dtype=np.int64)) // 2
+
+    def subset_errors(self, combos: np.ndarray) -> np.ndarray:
+        """Optimal training errors (m,) int64 of arbitrary sorted pixel sets ``combos`` (m, k)."""
+        m, k = combos.shape
+        D = np.empty((1 << k, m), np.int64)
+        for mask in range(1 << k):
+            D[mask] = self.all_ones(combos[:, [j for j in range(k) if mask >> j & 1]])
+        _moebius(D, k)
+        return (self.n_patches - np.abs(D).sum(axis=0)) // 2
 
 
-def subset_errors(pos: ClassCounts, neg: ClassCounts, combos: np.ndarray) -> np.ndarray:
-    """Optimal training error count (int64, shape (m,)) of each pixel set in ``combos``."""
-    return np.minimum(pattern_counts(pos, combos), pattern_counts(neg, combos)).sum(axis=1)
+def _moebius(A: np.ndarray, h: int) -> None:
+    """In place, over axis 0 of length 2^h: all-ones counts -> exact pattern counts.
+
+    Entry [mask, ...] holds N(T_mask); after the call it holds the count of patterns that are 1
+    exactly on T_mask (inclusion-exclusion one bit at a time).
+    """
+    V = A.reshape((2,) * h + A.shape[1:])
+    for ax in range(h):
+        lo = (slice(None),) * ax + (0,)
+        hi = (slice(None),) * ax + (1,)
+        V[lo] -= V[hi]
 
 
-def n_combinations(p: int, k: int) -> int:
-    from math import comb
-
-    return comb(p, k)
+def _table_unit(index: CountIndex, unit: tuple[int, int, int, int]) -> np.ndarray:
+    return index.top_counts(index.prefixes(unit), unit[1])
 
 
-def iter_combinations(p: int, k: int, chunk: int = CHUNK) -> Iterator[np.ndarray]:
-    """All k-subsets of range(p) in lexicographic order, as (m, k) int arrays of <= ~chunk rows."""
-    if k == 0:
-        yield np.zeros((1, 0), np.intp)
+def _best_unit(index: CountIndex, unit: tuple[int, int, int, int], keep: int):
+    """The ``keep`` best k-subsets of one unit (k = prefix length + 1): combos, errors."""
+    P, err = index.unit_errors(unit)
+    flat = err.ravel()
+    if keep == 1:
+        sel = np.flatnonzero(flat == flat.min())
+    elif keep < flat.size:
+        sel = np.flatnonzero(flat <= np.partition(flat, keep - 1)[keep - 1])
+    else:
+        sel = np.arange(flat.size)
+    i, j = np.divmod(sel, err.shape[1])
+    combos = np.column_stack([P[i], unit[1] + 1 + j]).astype(np.intp)
+    return _lowest(combos, flat[sel].astype(np.int64), keep)
+
+
+def _lowest(combos: np.ndarray, errs: np.ndarray, keep: int) -> tuple[np.ndarray, np.ndarray]:
+    """The ``keep`` rows of lowest error, ties in lexicographic order of the pixel set."""
+    order = np.lexsort(tuple(combos.T[::-1]) + (errs,))[:keep]
+    return combos[order], errs[order]
+
+
+def run_units(func, index: CountIndex, units: list, n_jobs: int | None, cancel: CancelFn | None, *args):
+    """Yield (unit, func(index, unit, *args)) in order; on joblib workers when n_jobs > 1.
+
+    ``cancel`` is polled before each result is taken; True raises :class:`SearchCancelled`, and
+    leaving the generator stops joblib from dispatching the remaining units.
+    """
+    if effective_n_jobs(n_jobs) == 1:
+        for unit in units:
+            if cancel is not None and cancel():
+                raise SearchCancelled
+            yield unit, func(index, unit, *args)
         return
-    if k == 1:
-        for s in range(0, p, chunk):
-            yield np.arange(s, min(p, s + chunk), dtype=np.intp)[:, None]
-        return
-    # Rows sharing the first k-1 pixels are built together; prefixes come in lexicographic order.
-    buf: list[np.ndarray] = []
-    size = 0
-    for prefix in iter_combinations(p, k - 1, chunk=max(1, chunk // max(1, p))):
-        last = prefix[:, -1]
-        counts = p - 1 - last
-        keep = counts > 0
-        prefix, last, counts = prefix[keep], last[keep], counts[keep]
-        if len(prefix) == 0:
-            continue
-        rows = np.repeat(np.arange(len(prefix)), counts)
-        starts = np.cumsum(counts) - counts
-        tail = last[rows] + 1 + (np.arange(counts.sum()) - starts[rows])
-        block = np.column_stack([prefix[rows], tail])
-        buf.append(block)
-        size += len(block)
-        if size >= chunk:
-            yield np.concatenate(buf)
-            buf, size = [], 0
-    if buf:
-        yield np.concatenate(buf)
-
-
-ProgressFn = Callable[[int, int], None]
-CancelFn = Callable[[], bool]
+    parallel = Parallel(n_jobs=n_jobs, prefer="threads", return_as="generator")
+    results = parallel(delayed(func)(index, u, *args) for u in units)
+    try:
+        for unit, result in zip(units, results):
+            if cancel is not None and cancel():
+                raise SearchCancelled
+            yield unit, result
+    finally:
+        with warnings.catch_warnings():
+            # joblib warns when a cancelled search leaves finished units unread; that is the point.
+            warnings.filterwarnings("ignore", message=".*tasks have been successfully executed", category=UserWarning)
+            results.close()
 
 
 def exhaustive_best(
-    pos: ClassCounts,
-    neg: ClassCounts,
+    index: CountIndex,
     k: int,
     keep: int = 1,
     progress: ProgressFn | None = None,
     cancel: CancelFn | None = None,
+    n_jobs: int | None = 1,
 ) -> tuple[np.ndarray, np.ndarray, int]:
-    """Score every k-subset; return the ``keep`` best (combos (keep, k), errors (keep,)) and the count.
+    """Score every k-subset of the pixels.
 
-    Best means lowest error, ties broken by lexicographic order of the pixel set.
+    Parameters
+    ----------
+    index : CountIndex
+    k : int, >= 1
+    keep : int
+        How many of the best sets to return.
+    progress : callable (done, total), optional
+        Called after each unit with the number of sets scored so far.
+    cancel : callable () -> bool, optional
+        Polled between units; True raises :class:`SearchCancelled`.
+    n_jobs : int or None
+        joblib workers (threads unless a backend is active); -1 for all cores.
+
+    Returns
+    -------
+    combos : ndarray of shape (min(keep, total), k), intp, best first, rows ascending
+    errors : ndarray of shape (min(keep, total),), int64
+    total : int, the number of sets scored, C(n_pixels, k)
+
+    Best means lowest training error, ties broken by lexicographic order of the pixel set.
     """
-    p = pos.packed.shape[0]
+    p = index.n_pixels
     total = n_combinations(p, k)
+    if total * index.n_words < PARALLEL_MIN_WORDS:
+        n_jobs = 1
     best_c = np.zeros((0, k), np.intp)
     best_e = np.zeros(0, np.int64)
     done = 0
-    for combos in iter_combinations(p, k):
-        if cancel is not None and cancel():
-            raise SearchCancelled
-        errs = subset_errors(pos, neg, combos)
-        best_c, best_e = _merge_best(best_c, best_e, combos, errs, keep)
-        done += len(combos)
-        if progress is not None:
-            progress(done, total)
+    # The reductions are small BLAS products; BLAS's own threads only fight our workers for cores.
+    with threadpool_limits(1, user_api="blas"):
+        for o in range(1, k):
+            if index.table_fits(o):
+                index.table(o, n_jobs=n_jobs, cancel=cancel)
+        units = list(index.units(k - 1))
+        for unit, (c, e) in run_units(_best_unit, index, units, n_jobs, cancel, keep):
+            best_c, best_e = _lowest(np.concatenate([best_c, c]), np.concatenate([best_e, e]), keep)
+            done += (unit[3] - unit[2]) * (p - 1 - unit[1])
+            if progress is not None:
+                progress(done, total)
     return best_c, best_e, total
 
 
-def _merge_best(best_c, best_e, combos, errs, keep):
-    """Keep the ``keep`` lowest errors; stable, so earlier (lexicographically smaller) sets win ties."""
-    if keep == 1 and len(best_e):
-        i = int(np.argmin(errs))
-        if errs[i] < best_e[0]:
-            return combos[i : i + 1].copy(), errs[i : i + 1].copy()
-        return best_c, best_e
-    c = np.concatenate([best_c, combos])
-    e = np.concatenate([best_e, errs])
-    order = np.argsort(e, kind="stable")[:keep]
-    return c[order].copy(), e[order].copy()
-
-
 def beam_best(
-    pos: ClassCounts,
-    neg: ClassCounts,
+    index: CountIndex,
     start: np.ndarray,
     k: int,
     width: int,
@@ -224,26 +474,29 @@ def beam_best(
 ) -> tuple[np.ndarray, np.ndarray, int]:
     """Grow the pixel sets in ``start`` (m, k0) one pixel at a time to size k, keeping ``width``.
 
-    Returns the beam at size k (sorted best first), its errors, and the number of sets scored.
+    Returns the beam at size k (sorted best first, ties lexicographic), its errors, and the number
+    of sets scored.
     """
-    p = pos.packed.shape[0]
-    beam = np.sort(start, axis=1)
+    p = index.n_pixels
+    beam = np.sort(np.asarray(start, np.intp), axis=1)
     scored = 0
     errs = np.zeros(len(beam), np.int64)
     steps = k - beam.shape[1]
+    step_rows = max(1, CHUNK_WORDS // max(1, index.n_words))
     for step in range(steps):
-        if cancel is not None and cancel():
-            raise SearchCancelled
-        m, size = beam.shape
+        m = len(beam)
         ext = np.repeat(beam, p, axis=0)
         new = np.tile(np.arange(p), m)
         ok = ~(ext == new[:, None]).any(axis=1)
-        cand = np.sort(np.column_stack([ext[ok], new[ok]]), axis=1)
-        cand = np.unique(cand, axis=0)  # sorted rows: lexicographic order, duplicates gone
-        errs = np.concatenate([subset_errors(pos, neg, cand[s : s + CHUNK]) for s in range(0, len(cand), CHUNK)])
+        cand = np.unique(np.sort(np.column_stack([ext[ok], new[ok]]), axis=1), axis=0)
+        errs = np.empty(len(cand), np.int64)
+        for s in range(0, len(cand), step_rows):
+            if cancel is not None and cancel():
+                raise SearchCancelled
+            with threadpool_limits(1, user_api="blas"):
+                errs[s : s + step_rows] = index.subset_errors(cand[s : s + step_rows])
         scored += len(cand)
-        order = np.argsort(errs, kind="stable")[:width]
-        beam, errs = cand[order], errs[order]
+        beam, errs = _lowest(cand, errs, width)
         if progress is not None:
             progress(step + 1, steps)
     return beam, errs, scored

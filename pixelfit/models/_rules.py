@@ -13,9 +13,8 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 
 from pixelfit.errors import TrainingError
 from pixelfit.models._lut_engine import (
-    TABLE_ORDER,
     CancelFn,
-    ClassCounts,
+    CountIndex,
     ProgressFn,
     beam_best,
     exhaustive_best,
@@ -112,6 +111,9 @@ class LutRule(_BinaryRule):
         largest size that is still exhaustive.
     beam_width : int
         Pixel sets kept per step of the beam search.
+    n_jobs : int or None
+        Threads for the exhaustive search (-1: all cores; None: 1, or what an active
+        ``joblib.parallel_config`` says). The result does not depend on it.
 
     Attributes
     ----------
@@ -130,10 +132,12 @@ class LutRule(_BinaryRule):
     train_errors_ : int
     """
 
-    def __init__(self, k: int = 1, max_exhaustive: int = MAX_EXHAUSTIVE, beam_width: int = 256):
+    def __init__(self, k: int = 1, max_exhaustive: int = MAX_EXHAUSTIVE, beam_width: int = 256,
+                 n_jobs: int | None = -1):
         self.k = k
         self.max_exhaustive = max_exhaustive
         self.beam_width = beam_width
+        self.n_jobs = n_jobs
 
     def fit(self, X, y, progress: ProgressFn | None = None, cancel: CancelFn | None = None):
         """Find the pixel set with the lowest training error and its table.
@@ -147,16 +151,14 @@ class LutRule(_BinaryRule):
         if not 1 <= k <= p:
             raise TrainingError(f"lut size k={k} must be between 1 and the number of pixels ({p})")
         feasible = [j for j in range(1, k + 1) if n_combinations(p, j) <= self.max_exhaustive]
-        order = min(TABLE_ORDER, k)
-        pos = ClassCounts.build(X[yb], order)
-        neg = ClassCounts.build(X[~yb], order)
+        index = CountIndex(X, yb)
         if feasible and feasible[-1] == k:
-            best, errs, scored = exhaustive_best(pos, neg, k, progress=progress, cancel=cancel)
+            best, errs, scored = exhaustive_best(index, k, progress=progress, cancel=cancel, n_jobs=self.n_jobs)
             self.search_ = "exhaustive"
         else:
             k0 = feasible[-1] if feasible else 1
-            start, _, scored0 = exhaustive_best(pos, neg, k0, keep=self.beam_width, cancel=cancel)
-            best, errs, scored = beam_best(pos, neg, start, k, self.beam_width, progress=progress, cancel=cancel)
+            start, _, scored0 = exhaustive_best(index, k0, keep=self.beam_width, cancel=cancel, n_jobs=self.n_jobs)
+            best, errs, scored = beam_best(index, start, k, self.beam_width, progress=progress, cancel=cancel)
             scored += scored0
             self.search_ = "beam"
         self.pixels_ = best[0].astype(np.intp)
