@@ -33,8 +33,7 @@ import numpy as np
 
 sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
-from pixelfit.models import LutRule
-from pixelfit.models import _lut_engine
+from pixelfit.models import LutRule, _lut_engine
 from pixelfit.models._lut_engine import CountIndex, exhaustive_best, pack_columns
 
 

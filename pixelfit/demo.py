@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import io
 import os
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -223,7 +224,7 @@ def solder_bridges(seed: int = SOLDER_BRIDGES_SEED, n_bridge: int = 700, n_clear
 
 
 #: Demo set name -> generator.
-GENERATORS = {"bottle-caps": bottle_caps, "solder-bridges": solder_bridges}
+GENERATORS: dict[str, Callable[[], DemoSet]] = {"bottle-caps": bottle_caps, "solder-bridges": solder_bridges}
 
 
 def generate(name: str) -> DemoSet:

@@ -163,7 +163,8 @@ def test_scanner_finds_each_unsafe_use(snippet):
 
 
 @pytest.mark.parametrize("snippet", [
-    "np.load(path, allow_pickle=False)", "from joblib import Parallel, delayed", "re.compile('x')", "model.evaluate(x)", "s = 'pickle eval('",
+    "np.load(path, allow_pickle=False)", "from joblib import Parallel, delayed",
+    "re.compile('x')", "model.evaluate(x)", "s = 'pickle eval('",
     "# eval(x) in a comment",
 ])
 def test_scanner_lets_safe_code_through(snippet):
