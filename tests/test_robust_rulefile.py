@@ -133,7 +133,7 @@ def test_c_export_with_evaluation_test_not_an_object(prep, lut_rung, test_value)
     doc = rule_document(prep, lut_rung)
     doc["evaluation"]["test"] = test_value
     header = header_text(parse_rule(doc), "r")
-    assert "Held-out precision None, recall None on None patches" in header
+    assert "Held-out precision undefined, recall undefined on undefined patches" in header
 
 
 def test_class_names_cannot_close_the_c_comment(prep, lut_rung):

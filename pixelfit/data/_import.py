@@ -669,6 +669,8 @@ def load_for_apply(path: str | os.PathLike, shape: tuple[int, int]) -> Dataset:
             col.skip(path, "symbolic link to a folder (not followed)")
         for file in files:
             parts = file.relative_to(root).parts
+            if len(parts) <= 2 and parts[-1].lower() in README_NAMES:
+                continue  # a README beside the patches or the class folders is documentation
             if len(parts) > 2 and parts[0] in ("train", "test"):
                 label = parts[1]
             elif len(parts) > 1:

@@ -7,6 +7,7 @@ tables use integers only; the weighted families use double-precision constants.
 
 from __future__ import annotations
 
+import math
 import os
 import re
 from pathlib import Path
@@ -36,9 +37,11 @@ def _rows(values, per_line: int = 12, fmt=str) -> str:
 
 def _stat(value) -> str:
     """A number from the file's evaluation as text; anything else (text, lists) as 'unknown'."""
-    if isinstance(value, (int, float)) and not isinstance(value, bool):
+    if isinstance(value, int) and not isinstance(value, bool):
         return str(value)
-    return "None" if value is None else "unknown"
+    if isinstance(value, float) and math.isfinite(value):
+        return f"{value:.3f}"
+    return "undefined" if value is None else "unknown"
 
 
 def _comment(text: str) -> str:
