@@ -38,6 +38,7 @@ from pixelfit.evaluate._metrics import detection_metrics
 from pixelfit.ladder import Prepared, Rung, conclude, prepare
 from pixelfit.models import FAMILIES, FAMILY_ORDER, plan_rungs
 from pixelfit.report import error_curves
+from pixelfit.rulefile import export_c, load_rule, save_rung
 
 EVENTS = ("dataset", "prep", "gallery", "settings", "run", "progress", "rungs", "selection", "threshold",
           "map", "target", "message")
@@ -386,11 +387,6 @@ class Session:
             self.say("select a rung to save first", True)
             return None
         try:
-            from pixelfit.rulefile import save_rung
-        except ImportError:
-            self.say("saving rule files needs pixelfit.rulefile, which this build lacks", True)
-            return None
-        try:
             out = Path(save_rung(path, self.run_prep, r))
         except PixelfitError as exc:
             self.say(str(exc), True)
@@ -405,11 +401,6 @@ class Session:
 
     def export_selected_c(self, header_path: str | os.PathLike) -> tuple[Path, Path] | None:
         """Save the selected rung beside ``header_path`` (same stem, .json) and export C from it."""
-        try:
-            from pixelfit.rulefile import export_c, load_rule
-        except ImportError:
-            self.say("C export needs pixelfit.rulefile, which this build lacks", True)
-            return None
         header_path = Path(header_path)
         saved = self.save_selected(header_path.with_suffix(".json"))
         if saved is None:
