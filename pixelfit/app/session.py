@@ -31,7 +31,7 @@ from pathlib import Path
 
 import numpy as np
 
-from pixelfit.data import Binarizer, Dataset, load_dataset
+from pixelfit.data import Binarizer, Dataset, grey_histogram, load_dataset
 from pixelfit.errors import PixelfitError
 from pixelfit.evaluate._compare import threshold_for_target
 from pixelfit.evaluate._metrics import detection_metrics
@@ -179,7 +179,7 @@ class Session:
         if self.prep is None:
             return np.zeros(256, np.int64), None
         train = self.dataset.images[~self.prep.test_mask]
-        counts = np.bincount(train.ravel(), minlength=256)
+        counts = grey_histogram(train).astype(np.int64)
         b = self.prep.binarizer
         if b.method in ("fixed", "otsu"):
             return counts, np.array([b.threshold], np.float64)

@@ -1,6 +1,6 @@
 """Import, binarize and split: numpy and Pillow only."""
 
-from pixelfit.data._binarize import METHODS, Binarizer, otsu_threshold
+from pixelfit.data._binarize import METHODS, Binarizer, grey_histogram, otsu_threshold
 from pixelfit.data._import import (
     MAX_SIDE,
     Dataset,
@@ -14,7 +14,7 @@ from pixelfit.data._import import (
 from pixelfit.data._split import fingerprint, raw_fingerprint, stratified_split
 
 __all__ = [
-    "METHODS", "Binarizer", "otsu_threshold", "MAX_SIDE", "Dataset", "Skipped", "binary_target",
+    "METHODS", "Binarizer", "grey_histogram", "otsu_threshold", "MAX_SIDE", "Dataset", "Skipped", "binary_target",
     "choose_positive", "load_dataset", "load_for_apply", "read_patch", "fingerprint", "raw_fingerprint",
     "stratified_split",
 ]

@@ -36,8 +36,20 @@ def otsu_threshold(values: np.ndarray) -> int:
     ----------
     values : ndarray of uint8, any shape
     """
-    hist = np.bincount(np.asarray(values, dtype=np.uint8).ravel(), minlength=256).astype(np.float64)
-    return int(_otsu_from_hist(hist[None, :])[0])
+    return int(_otsu_from_hist(grey_histogram(values)[None, :])[0])
+
+
+def grey_histogram(values: np.ndarray, chunk: int = 1 << 22) -> np.ndarray:
+    """Counts of each grey level 0..255 as float64 (256,), in chunks.
+
+    ``np.bincount`` widens its input to machine integers; counting in chunks keeps that copy
+    small for large training sets.
+    """
+    flat = np.asarray(values, dtype=np.uint8).ravel()
+    hist = np.zeros(256, np.float64)
+    for start in range(0, len(flat), chunk):
+        hist += np.bincount(flat[start : start + chunk], minlength=256)
+    return hist
 
 
 def _otsu_from_hist(hist: np.ndarray) -> np.ndarray:
