@@ -112,8 +112,10 @@ class LutRule(_BinaryRule):
     beam_width : int
         Pixel sets kept per step of the beam search.
     n_jobs : int or None
-        Threads for the exhaustive search (-1: all cores; None: 1, or what an active
-        ``joblib.parallel_config`` says). The result does not depend on it.
+        Threads for the exhaustive search (-1: all cores; None: what an active
+        ``joblib.parallel_config`` says). The result does not depend on it. The default is 1:
+        on a quiet 2-core machine two threads were no faster than one (k=4 on 10,000 9x9 patches:
+        1.24 s against 0.97 s; ``benchmarks/README.md``), the counting being bound by memory.
 
     Attributes
     ----------
@@ -133,7 +135,7 @@ class LutRule(_BinaryRule):
     """
 
     def __init__(self, k: int = 1, max_exhaustive: int = MAX_EXHAUSTIVE, beam_width: int = 256,
-                 n_jobs: int | None = -1):
+                 n_jobs: int | None = 1):
         self.k = k
         self.max_exhaustive = max_exhaustive
         self.beam_width = beam_width
