@@ -6,7 +6,7 @@ import math
 
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
 from pixelfit.app.session import Session
-from pixelfit.app.widgets import Listens
+from pixelfit.app.widgets import Listens, Throttled
 from pixelfit.ladder import Rung
 from pixelfit.models import FAMILIES
 
@@ -19,6 +19,10 @@ FAMILY_RGB = {"constant": (110, 110, 110), "lut": (46, 92, 160), "nb": (40, 150,
 KIND_STYLE = {"train": QtCore.Qt.PenStyle.DashLine, "cv": QtCore.Qt.PenStyle.SolidLine,
               "test": QtCore.Qt.PenStyle.DotLine, "bound": QtCore.Qt.PenStyle.DashDotLine}
 KIND_LABEL = {"train": "train error", "cv": "CV error", "test": "held-out error", "bound": "bound (95 %)"}
+#: Least time between two redraws of the error plot, and between two fits of the table's column
+#: widths to their contents, while rungs arrive; see benchmarks/bench_gui_stall.py.
+PLOT_INTERVAL_MS = 500
+COLUMN_FIT_INTERVAL_MS = 1000
 
 
 def _num(v, digits: int = 3) -> str:
@@ -58,18 +62,39 @@ COLUMNS: list[tuple[str, str, callable]] = [
 
 
 class LadderTableModel(QtCore.QAbstractTableModel):
-    """Read-only view of ``session.rungs``."""
+    """Read-only view of ``session.rungs``.
+
+    The model keeps its own list of the rungs it shows, so that rungs appended to the session
+    arrive as inserted rows (:meth:`follow`) instead of a reset: a reset drops the view's
+    selection and lays every row out again, once per finished rung while a ladder climbs.
+    """
 
     def __init__(self, session: Session, parent=None):
         super().__init__(parent)
         self.session = session
+        self.rows: list[Rung] = list(session.rungs)
 
     def reset(self) -> None:
         self.beginResetModel()
+        self.rows = list(self.session.rungs)
         self.endResetModel()
 
+    def follow(self) -> bool:
+        """Catch up with ``session.rungs``; True when that took a reset rather than appended rows."""
+        now, n = self.session.rungs, len(self.rows)
+        if len(now) < n or any(a is not b for a, b in zip(self.rows, now)):
+            self.reset()
+            return True
+        if len(now) > n:
+            self.beginInsertRows(QtCore.QModelIndex(), n, len(now) - 1)
+            self.rows = list(now)
+            self.endInsertRows()
+        if n:  # the recommended mark and the comparisons of earlier rows may have moved
+            self.dataChanged.emit(self.index(0, 0), self.index(n - 1, len(COLUMNS) - 1))
+        return False
+
     def rowCount(self, parent=None) -> int:
-        return 0 if parent is not None and parent.isValid() else len(self.session.rungs)
+        return 0 if parent is not None and parent.isValid() else len(self.rows)
 
     def columnCount(self, parent=None) -> int:
         return 0 if parent is not None and parent.isValid() else len(COLUMNS)
@@ -85,7 +110,7 @@ class LadderTableModel(QtCore.QAbstractTableModel):
     def data(self, index, role=Role.DisplayRole):
         if not index.isValid():
             return None
-        r: Rung = self.session.rungs[index.row()]
+        r: Rung = self.rows[index.row()]
         if role == Role.DisplayRole:
             return COLUMNS[index.column()][2](r)
         if role == Role.FontRole and r.recommended:
@@ -124,18 +149,22 @@ class LadderTable(Listens, QtWidgets.QTableView):
         self.horizontalHeader().setStretchLastSection(True)
         self.setAlternatingRowColors(True)
         self.selectionModel().currentRowChanged.connect(self._row_chosen)
+        # Fitting the columns measures every cell's text; once a second is enough while rungs come.
+        self._fit_columns = Throttled(self.resizeColumnsToContents, COLUMN_FIT_INTERVAL_MS, self)
         self.listen(session, "rungs", self._rungs_changed)
         self.listen(session, "selection", self._show_selection)
+        self.listen(session, "run", self._fit_columns.flush)
 
     def _row_chosen(self, current: QtCore.QModelIndex, _previous) -> None:
-        if current.isValid() and current.row() < len(self.session.rungs):
-            key = self.session.rungs[current.row()].key
+        rows = self.table_model.rows
+        if current.isValid() and current.row() < len(rows):
+            key = rows[current.row()].key
             if self.session.selected is None or self.session.selected.key != key:
                 self.session.select(key)
 
     def _rungs_changed(self) -> None:
-        self.table_model.reset()
-        self.resizeColumnsToContents()
+        self.table_model.follow()
+        self._fit_columns.request()
         self._show_selection()
 
     def _show_selection(self) -> None:
@@ -145,7 +174,9 @@ class LadderTable(Listens, QtWidgets.QTableView):
         if sel is None:
             sm.clearSelection()
         else:
-            row = self.session.rungs.index(sel)
+            if not any(r is sel for r in self.table_model.rows):
+                self.table_model.follow()  # a selection announced before the rungs it is among
+            row = next(i for i, r in enumerate(self.table_model.rows) if r is sel)
             idx = self.table_model.index(row, 0)
             sm.setCurrentIndex(idx, QtCore.QItemSelectionModel.SelectionFlag.ClearAndSelect
                                | QtCore.QItemSelectionModel.SelectionFlag.Rows)
@@ -183,12 +214,18 @@ class ErrorPlot(Listens, pg.PlotWidget):
         self.points = pg.ScatterPlotItem(size=9, hoverable=True, tip=None)
         self.points.sigClicked.connect(self._clicked)
         self.marker = pg.ScatterPlotItem(size=18, symbol="o", pen=pg.mkPen((0, 0, 0), width=2), brush=None)
-        # One curve item per (family, kind), made on first use and then only given new data: a
-        # rung arriving must cost the GUI thread little (see benchmarks/bench_gui_stall.py).
+        # One curve item per (family, kind), made on first use and then only given new data when
+        # its data changed: a rung arriving must cost the GUI thread little (see
+        # benchmarks/bench_gui_stall.py). Rungs arriving together are drawn together, at most
+        # once per PLOT_INTERVAL_MS, and not at all while the plot is hidden behind another tab.
         self._curves: dict[tuple[str, str], pg.PlotDataItem] = {}
+        self._drawn: dict[object, object] = {}  # what each curve, the points and the axes were last given
+        self._stale = False
         self.addItem(self.points)
         self.addItem(self.marker)
-        self.listen(session, "rungs", self.redraw)
+        self._redraw_later = Throttled(self.redraw, PLOT_INTERVAL_MS, self)
+        self.listen(session, "rungs", self._redraw_later.request)
+        self.listen(session, "run", self._redraw_later.flush)
         self.listen(session, "selection", self._mark)
         self.redraw()
 
@@ -207,34 +244,54 @@ class ErrorPlot(Listens, pg.PlotWidget):
                 self.legend.addItem(item, family)
         return item
 
+    def _changed(self, what, value) -> bool:
+        """True (and remembered) when ``value`` differs from what ``what`` was last given."""
+        if what in self._drawn and self._drawn[what] == value:
+            return False
+        self._drawn[what] = value
+        return True
+
+    def showEvent(self, event) -> None:
+        super().showEvent(event)
+        if self._stale:
+            self.redraw()
+
     def redraw(self) -> None:
+        if not self.isVisible():
+            self._stale = True
+            return
+        self._stale = False
+        self._redraw_later.cancel()
         pi = self.getPlotItem()
         curves = self.session.error_curves()
         sizes = set()
         for key, item in self._curves.items():
-            if key[0] not in curves:
+            if key[0] not in curves and self._changed(key, ((), ())):
                 item.setData([], [])
         for fam, kinds in curves.items():
             for kind, pts in kinds.items():
                 sizes.update(s for s, _ in pts)
-                xs = [size_position(s) for s, e in pts if e is not None]
-                ys = [min(1.0, e) for s, e in pts if e is not None]
-                if xs or (fam, kind) in self._curves:
-                    self._curve(fam, kind).setData(xs, ys)
-        spots = []
-        for r in self.session.rungs:
-            rgb = FAMILY_RGB.get(r.family, (0, 0, 0))
-            spots.append({"pos": (size_position(r.size), min(1.0, _point_error(r))), "data": r.key,
-                          "brush": pg.mkBrush(*rgb), "pen": pg.mkPen("w"),
-                          "symbol": "star" if r.recommended else "o", "size": 16 if r.recommended else 9})
-        self.points.setData(spots)
+                xs = tuple(size_position(s) for s, e in pts if e is not None)
+                ys = tuple(min(1.0, e) for s, e in pts if e is not None)
+                if (xs or (fam, kind) in self._curves) and self._changed((fam, kind), (xs, ys)):
+                    self._curve(fam, kind).setData(list(xs), list(ys))
+        rungs = self.session.rungs
+        spots = tuple((r.key, size_position(r.size), min(1.0, _point_error(r)), r.recommended) for r in rungs)
+        if self._changed("points", spots):
+            self.points.setData(
+                x=[p[1] for p in spots], y=[p[2] for p in spots], data=[p[0] for p in spots],
+                brush=[pg.mkBrush(*FAMILY_RGB.get(r.family, (0, 0, 0))) for r in rungs], pen=pg.mkPen("w"),
+                symbol=["star" if p[3] else "o" for p in spots], size=[16 if p[3] else 9 for p in spots])
         shown = [e for kinds in curves.values() for pts in kinds.values() for _, e in pts if e is not None]
-        pi.setYRange(0, min(1.0, max(shown, default=1.0) * 1.1 + 0.02), padding=0)
+        top = min(1.0, max(shown, default=1.0) * 1.1 + 0.02)
+        if self._changed("y", top):
+            pi.setYRange(0, top, padding=0)
         ticks = [(size_position(s), str(s)) for s in sorted(sizes)]
-        pi.getAxis("bottom").setTicks([ticks])
-        if sizes:
-            xs = [t[0] for t in ticks]
-            pi.setXRange(min(xs) - 0.3, max(xs) + 0.3, padding=0)
+        if self._changed("x", tuple(ticks)):
+            pi.getAxis("bottom").setTicks([ticks])
+            if sizes:
+                xs = [t[0] for t in ticks]
+                pi.setXRange(min(xs) - 0.3, max(xs) + 0.3, padding=0)
         self._mark()
 
     def _mark(self) -> None:
