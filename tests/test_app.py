@@ -184,6 +184,25 @@ def test_halt_keeps_finished_rungs(qtbot, window, tmp_path):
     assert w.worker is None and w.act_climb.isEnabled()
 
 
+def test_climb_again_replaces_rows_and_plot(qtbot, window, class_folder, answers):
+    """A second climb drops the old rungs from every panel (the selection was still on an old
+    rung when the table emptied) and shows the new ones, row for rung, point for rung."""
+    w, s = window, window.session
+    assert w.open_path(class_folder)
+    climb(qtbot, w, **SMALL)
+    first = list(s.rungs)
+    climb(qtbot, w, families=["constant", "tree"], max_size=3, folds=2)
+    assert answers.asked == ["Replace the trained rungs?"]
+    assert [r.key for r in s.rungs] == ["constant-0", "tree-1", "tree-2", "tree-3"]
+    assert not any(r is old for r in s.rungs for old in first)
+    model = w.table.model()
+    assert [model.index(i, 0).data().lstrip("★ ") for i in range(model.rowCount())] == [r.key for r in s.rungs]
+    assert sorted(p.data() for p in w.error_plot.points.points()) == sorted(r.key for r in s.rungs)
+    rec = s.rungs.index(s.recommended)
+    assert model.index(rec, 0).data() == "★ " + s.recommended.key
+    assert w.table.selectionModel().currentIndex().row() == s.rungs.index(s.selected)
+
+
 def test_errors_stay_in_the_window(qtbot, window, tmp_path, class_folder, monkeypatch):
     w, s = window, window.session
     assert not w.open_path(tmp_path / "nowhere")

@@ -10,8 +10,6 @@ from pixelfit.app.widgets import Listens, Throttled
 from pixelfit.ladder import Rung
 from pixelfit.models import FAMILIES
 
-Role = QtCore.Qt.ItemDataRole
-
 #: One colour per family, so a family keeps its colour in the plot and the table.
 FAMILY_RGB = {"constant": (110, 110, 110), "lut": (46, 92, 160), "nb": (40, 150, 70), "logistic": (150, 60, 150),
               "tree": (214, 120, 16), "mlp": (190, 50, 50), "memorize": (20, 150, 160)}
@@ -61,76 +59,87 @@ COLUMNS: list[tuple[str, str, callable]] = [
 ]
 
 
-class LadderTableModel(QtCore.QAbstractTableModel):
-    """Read-only view of ``session.rungs``.
+def _tooltip(r: Rung) -> str:
+    lines = list(r.notes)
+    vs = r.versus_smaller
+    if vs:
+        verdict = "significantly better" if vs["significant"] else "not significantly better"
+        lines.append(f"vs {r.family}-{vs['size']}: {verdict} on held-out patches (McNemar p = {vs['p_value']:.3g})")
+    return "\n".join(lines)
 
-    The model keeps its own list of the rungs it shows, so that rungs appended to the session
-    arrive as inserted rows (:meth:`follow`) instead of a reset: a reset drops the view's
-    selection and lays every row out again, once per finished rung while a ladder climbs.
+
+def _row_look(r: Rung) -> tuple[tuple[str, ...], bool, str]:
+    """Everything a rung's row shows: the cell texts, the recommended mark, the tooltip."""
+    return tuple(cell(r) for _, _, cell in COLUMNS), bool(r.recommended), _tooltip(r)
+
+
+class LadderTableModel(QtGui.QStandardItemModel):
+    """The rows of ``session.rungs``, written into Qt's own item store.
+
+    Painting a table asks its model for every role of every visible cell; with a Python model
+    each of those thousands of calls must take the interpreter lock, and while the ladder worker
+    holds it each one waits. Here the cells are written in Python once per change and painted
+    from Qt's items without entering Python. :meth:`follow` appends the rows of new rungs and
+    rewrites only the rows whose text or marks changed.
     """
 
     def __init__(self, session: Session, parent=None):
-        super().__init__(parent)
+        super().__init__(0, len(COLUMNS), parent)
+        for c, (head, tip, _) in enumerate(COLUMNS):
+            item = QtGui.QStandardItem(head)
+            item.setToolTip(tip)
+            self.setHorizontalHeaderItem(c, item)
         self.session = session
-        self.rows: list[Rung] = list(session.rungs)
+        self.rows: list[Rung] = []
+        self._looks: list[tuple] = []
+        self.follow()
 
     def reset(self) -> None:
-        self.beginResetModel()
-        self.rows = list(self.session.rungs)
-        self.endResetModel()
+        self.setRowCount(0)
+        self.rows, self._looks = [], []
+        self.follow()
 
     def follow(self) -> bool:
         """Catch up with ``session.rungs``; True when that took a reset rather than appended rows."""
-        now, n = self.session.rungs, len(self.rows)
-        if len(now) < n or any(a is not b for a, b in zip(self.rows, now)):
-            self.reset()
-            return True
-        if len(now) > n:
-            self.beginInsertRows(QtCore.QModelIndex(), n, len(now) - 1)
-            self.rows = list(now)
-            self.endInsertRows()
-        if n:  # the recommended mark and the comparisons of earlier rows may have moved
-            self.dataChanged.emit(self.index(0, 0), self.index(n - 1, len(COLUMNS) - 1))
-        return False
+        now = self.session.rungs
+        if len(now) < len(self.rows) or any(a is not b for a, b in zip(self.rows, now)):
+            self.setRowCount(0)
+            self.rows, self._looks = [], []
+            reset = True
+        else:
+            reset = False
+        for i, r in enumerate(now):
+            look = _row_look(r)
+            if i == len(self.rows):
+                self.appendRow(self._items(r, look))
+                self.rows.append(r)
+                self._looks.append(look)
+            elif look != self._looks[i]:  # the recommended mark or a comparison moved
+                for c, item in enumerate(self._items(r, look)):
+                    self.setItem(i, c, item)
+                self._looks[i] = look
+        return reset
 
-    def rowCount(self, parent=None) -> int:
-        return 0 if parent is not None and parent.isValid() else len(self.rows)
-
-    def columnCount(self, parent=None) -> int:
-        return 0 if parent is not None and parent.isValid() else len(COLUMNS)
-
-    def headerData(self, section, orientation, role=Role.DisplayRole):
-        if orientation == QtCore.Qt.Orientation.Horizontal:
-            if role == Role.DisplayRole:
-                return COLUMNS[section][0]
-            if role == Role.ToolTipRole:
-                return COLUMNS[section][1]
-        return None
-
-    def data(self, index, role=Role.DisplayRole):
-        if not index.isValid():
-            return None
-        r: Rung = self.rows[index.row()]
-        if role == Role.DisplayRole:
-            return COLUMNS[index.column()][2](r)
-        if role == Role.FontRole and r.recommended:
-            f = QtGui.QFont()
-            f.setBold(True)
-            return f
-        if role == Role.ForegroundRole and index.column() == 0:
-            return QtGui.QBrush(QtGui.QColor(*FAMILY_RGB.get(r.family, (0, 0, 0))))
-        if role == Role.BackgroundRole and r.recommended:
-            return QtGui.QBrush(QtGui.QColor(232, 244, 234))
-        if role == Role.ToolTipRole:
-            lines = list(r.notes)
-            vs = r.versus_smaller
-            if vs:
-                verdict = "significantly better" if vs["significant"] else "not significantly better"
-                lines.append(f"vs {r.family}-{vs['size']}: {verdict} on held-out patches (McNemar p = {vs['p_value']:.3g})")
-            return "\n".join(lines) or None
-        if role == Role.TextAlignmentRole and index.column() > 0:
-            return int(QtCore.Qt.AlignmentFlag.AlignRight | QtCore.Qt.AlignmentFlag.AlignVCenter)
-        return None
+    @staticmethod
+    def _items(r: Rung, look: tuple) -> list[QtGui.QStandardItem]:
+        texts, recommended, tip = look
+        items = []
+        for c, text in enumerate(texts):
+            item = QtGui.QStandardItem(text)
+            item.setEditable(False)
+            if c == 0:
+                item.setForeground(QtGui.QBrush(QtGui.QColor(*FAMILY_RGB.get(r.family, (0, 0, 0)))))
+            else:
+                item.setTextAlignment(QtCore.Qt.AlignmentFlag.AlignRight | QtCore.Qt.AlignmentFlag.AlignVCenter)
+            if recommended:
+                font = QtGui.QFont()
+                font.setBold(True)
+                item.setFont(font)
+                item.setBackground(QtGui.QBrush(QtGui.QColor(232, 244, 234)))
+            if tip:
+                item.setToolTip(tip)
+            items.append(item)
+        return items
 
 
 class LadderTable(Listens, QtWidgets.QTableView):
@@ -171,12 +180,10 @@ class LadderTable(Listens, QtWidgets.QTableView):
         sel = self.session.selected
         sm = self.selectionModel()
         sm.blockSignals(True)
-        if sel is None:
+        row = None if sel is None else next((i for i, r in enumerate(self.table_model.rows) if r is sel), None)
+        if row is None:  # nothing selected, or the rungs were just cleared and the selection follows
             sm.clearSelection()
         else:
-            if not any(r is sel for r in self.table_model.rows):
-                self.table_model.follow()  # a selection announced before the rungs it is among
-            row = next(i for i, r in enumerate(self.table_model.rows) if r is sel)
             idx = self.table_model.index(row, 0)
             sm.setCurrentIndex(idx, QtCore.QItemSelectionModel.SelectionFlag.ClearAndSelect
                                | QtCore.QItemSelectionModel.SelectionFlag.Rows)
