@@ -177,8 +177,11 @@ def test_halt_keeps_finished_rungs(qtbot, window, tmp_path):
     assert w.start_climb()
     qtbot.waitUntil(lambda: len(s.rungs) >= 1, timeout=30_000)
     assert s.running and w.table.model().rowCount() == len(s.rungs)  # rungs show as they finish
+    locked = (w.prep_panel.method, w.prep_panel.invert, w.report.positive, w.climb.folds)
+    assert not any(c.isEnabled() for c in locked)  # the data and settings stay put while it climbs
     w.act_halt.trigger()
     qtbot.waitUntil(lambda: not s.running, timeout=30_000)
+    assert all(c.isEnabled() for c in locked)
     assert 1 <= len(s.rungs) < s.planned
     assert "halted" in w.strip.text.text()
     assert w.worker is None and w.act_climb.isEnabled()

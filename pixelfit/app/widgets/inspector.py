@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from pixelfit.app._qt import QtCore, QtWidgets, pg
+from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
 from pixelfit.app.images import enlarged_pixmap, signed_colormap, symmetric_levels
 from pixelfit.app.session import MAP_KINDS, Session
 from pixelfit.app.widgets import Listens
@@ -12,6 +12,8 @@ from pixelfit.models import FAMILIES
 
 #: Thumbnails of misses shown per kind; the count says how many there are in all.
 MAX_MISSES = 48
+#: Miss thumbnails kept for reuse before the store starts afresh.
+MAX_THUMBS = 4096
 SLIDER_STEPS = 1000
 
 
@@ -111,6 +113,8 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self.fn_label = QtWidgets.QLabel("")
         self.fp_list = self._thumb_list()
         self.fn_list = self._thumb_list()
+        # Thumbnails of misses by dataset row: the same patches are missed by rung after rung.
+        self._thumbs: tuple[object, dict[int, QtGui.QPixmap]] = (None, {})
 
         top = QtWidgets.QHBoxLayout()
         top.addWidget(self.title, 1)
@@ -306,8 +310,14 @@ class RungInspector(Listens, QtWidgets.QWidget):
             if ds is None:
                 continue
             lst.setIconSize(QtCore.QSize(ds.shape[1] * 3, ds.shape[0] * 3))
+            if self._thumbs[0] is not ds or len(self._thumbs[1]) > MAX_THUMBS:
+                self._thumbs = (ds, {})
+            thumbs = self._thumbs[1]
             for i in shown:
-                item = QtWidgets.QListWidgetItem(enlarged_pixmap(ds.images[i], 3), "")
+                pix = thumbs.get(int(i))
+                if pix is None:
+                    pix = thumbs[int(i)] = enlarged_pixmap(ds.images[i], 3)
+                item = QtWidgets.QListWidgetItem(pix, "")
                 item.setToolTip(f"{ds.names[i]}: {ds.labels[i]}")
                 item.setData(QtCore.Qt.ItemDataRole.UserRole, int(i))
                 lst.addItem(item)
