@@ -274,7 +274,10 @@ class MainWindow(QtWidgets.QMainWindow):
         w.ended.connect(self._climb_ended)
         self.worker = w
         self.tabs.setCurrentIndex(0)
-        w.start()
+        # The thread starts on the next turn of the event loop, after the ladder tab this brings up
+        # has been laid out and painted: painted while the worker runs, every Python paint call of
+        # the plot would wait for the interpreter lock (see benchmarks/bench_gui_stall.py).
+        QtCore.QTimer.singleShot(0, w, w.start_unless_cancelled)
         return True
 
     def halt_climb(self) -> None:

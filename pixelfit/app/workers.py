@@ -40,6 +40,11 @@ class LadderWorker(QtCore.QThread):
     def cancel(self) -> None:
         self._cancel.set()
 
+    def start_unless_cancelled(self) -> None:
+        """Start the thread, unless the run was cancelled before it began."""
+        if not self._cancel.is_set():
+            self.start()
+
     def run(self) -> None:  # runs in the worker thread
         spec = self._spec
         try:

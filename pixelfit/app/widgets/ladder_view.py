@@ -217,7 +217,7 @@ class ErrorPlot(Listens, pg.PlotWidget):
         pi.showGrid(x=True, y=True, alpha=0.25)
         self.legend = pi.addLegend(offset=(-10, 10), labelTextSize="8pt", colCount=2)
         for kind, style in KIND_STYLE.items():  # line style keys, in black, before the family colours
-            self.legend.addItem(pg.PlotDataItem(pen=pg.mkPen((0, 0, 0), width=1.5, style=style)), KIND_LABEL[kind])
+            self.legend.addItem(pg.PlotCurveItem(pen=pg.mkPen((0, 0, 0), width=1.5, style=style)), KIND_LABEL[kind])
         self.points = pg.ScatterPlotItem(size=9, hoverable=True, tip=None)
         self.points.sigClicked.connect(self._clicked)
         self.marker = pg.ScatterPlotItem(size=18, symbol="o", pen=pg.mkPen((0, 0, 0), width=2), brush=None)
@@ -225,7 +225,9 @@ class ErrorPlot(Listens, pg.PlotWidget):
         # its data changed: a rung arriving must cost the GUI thread little (see
         # benchmarks/bench_gui_stall.py). Rungs arriving together are drawn together, at most
         # once per PLOT_INTERVAL_MS, and not at all while the plot is hidden behind another tab.
-        self._curves: dict[tuple[str, str], pg.PlotDataItem] = {}
+        # Plain curve items: a PlotDataItem would add a scatter child and a wrapper per curve, and
+        # every graphics item is Python the GUI thread calls into on each paint.
+        self._curves: dict[tuple[str, str], pg.PlotCurveItem] = {}
         self._drawn: dict[object, object] = {}  # what each curve, the points and the axes were last given
         self._stale = False
         self.addItem(self.points)
@@ -240,11 +242,11 @@ class ErrorPlot(Listens, pg.PlotWidget):
         if len(points):
             self.session.select(points[0].data())
 
-    def _curve(self, family: str, kind: str) -> pg.PlotDataItem:
+    def _curve(self, family: str, kind: str) -> pg.PlotCurveItem:
         item = self._curves.get((family, kind))
         if item is None:
             rgb = FAMILY_RGB.get(family, (0, 0, 0))
-            item = pg.PlotDataItem(pen=pg.mkPen(rgb, width=2.5 if kind == "cv" else 1.5, style=KIND_STYLE[kind]))
+            item = pg.PlotCurveItem(pen=pg.mkPen(rgb, width=2.5 if kind == "cv" else 1.5, style=KIND_STYLE[kind]))
             self.getPlotItem().addItem(item)
             self._curves[(family, kind)] = item
             if kind == "cv":
