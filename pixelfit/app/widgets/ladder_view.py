@@ -21,6 +21,8 @@ KIND_LABEL = {"train": "train error", "cv": "CV error", "test": "held-out error"
 #: widths to their contents, while rungs arrive; see benchmarks/bench_gui_stall.py.
 PLOT_INTERVAL_MS = 500
 COLUMN_FIT_INTERVAL_MS = 1000
+#: Pixels for the error-rate tick labels ("0.05" ... "1.0") beside the axis title.
+LEFT_AXIS_WIDTH = 46
 
 
 def _num(v, digits: int = 3) -> str:
@@ -213,6 +215,9 @@ class ErrorPlot(Listens, pg.PlotWidget):
         pi = self.getPlotItem()
         pi.setLabel("left", "error rate")
         pi.getAxis("left").enableAutoSIPrefix(False)
+        # A fixed width for the error-rate ticks: sized to its texts, the axis would lay the plot
+        # out again (and paint it once more) whenever the range moves while rungs arrive.
+        pi.getAxis("left").setWidth(LEFT_AXIS_WIDTH)
         pi.setLabel("bottom", "size (log2 spacing)")
         pi.showGrid(x=True, y=True, alpha=0.25)
         self.legend = pi.addLegend(offset=(-10, 10), labelTextSize="8pt", colCount=2)
