@@ -187,6 +187,18 @@ def test_halt_keeps_finished_rungs(qtbot, window, tmp_path):
     assert w.worker is None and w.act_climb.isEnabled()
 
 
+def test_halt_before_the_thread_starts(qtbot, window, class_folder):
+    """The ladder thread starts a moment after the climb; a halt in that moment ends the run."""
+    w, s = window, window.session
+    assert w.open_path(class_folder)
+    assert w.start_climb()
+    w.act_halt.trigger()
+    assert s.running
+    qtbot.waitUntil(lambda: not s.running, timeout=5_000)
+    assert s.rungs == [] and "halted: 0 of" in w.strip.text.text()
+    assert w.worker is None and w.act_climb.isEnabled()
+
+
 def test_climb_again_replaces_rows_and_plot(qtbot, window, class_folder, answers):
     """A second climb drops the old rungs from every panel (the selection was still on an old
     rung when the table emptied) and shows the new ones, row for rung, point for rung."""

@@ -41,8 +41,12 @@ class LadderWorker(QtCore.QThread):
         self._cancel.set()
 
     def start_unless_cancelled(self) -> None:
-        """Start the thread, unless the run was cancelled before it began."""
-        if not self._cancel.is_set():
+        """Start the thread; a run cancelled before it began ends at once, as 'cancelled'."""
+        if self.isRunning() or self.isFinished():
+            return
+        if self._cancel.is_set():
+            self.ended.emit("cancelled", "")
+        else:
             self.start()
 
     def run(self) -> None:  # runs in the worker thread
