@@ -216,6 +216,11 @@ def test_climb_again_replaces_rows_and_plot(qtbot, window, class_folder, answers
     rec = s.rungs.index(s.recommended)
     assert model.index(rec, 0).data() == "★ " + s.recommended.key
     assert w.table.selectionModel().currentIndex().row() == s.rungs.index(s.selected)
+    # The held-out figures of the new selection follow on the next turn of the event loop.
+    qtbot.waitUntil(lambda: w.inspector.confusion.item(0, 0).text() == str(s.threshold_metrics()["tp"]))
+    # The legend lists this run's families only.
+    legend = [label.text for _, label in w.error_plot.legend.items]
+    assert "constant" in legend and "tree" in legend and "lut" not in legend
 
 
 def test_errors_stay_in_the_window(qtbot, window, tmp_path, class_folder, monkeypatch):

@@ -7,7 +7,7 @@ import numpy as np
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
 from pixelfit.app.images import enlarged_pixmap, signed_colormap, symmetric_levels
 from pixelfit.app.session import MAP_KINDS, Session
-from pixelfit.app.widgets import Listens
+from pixelfit.app.widgets import Listens, Throttled
 from pixelfit.models import FAMILIES
 
 #: Thumbnails of misses shown per kind; the count says how many there are in all.
@@ -155,6 +155,10 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self.slider_value.valueChanged.connect(session.set_threshold)
         self.target.valueChanged.connect(lambda v: session.set_target_precision(v or None))
         self.go_target.clicked.connect(self._go_to_target)
+        # A new selection shows its title, map and fixed rows at once and the held-out figures at
+        # the threshold (core metrics, miss thumbnails) on the next turn of the event loop, so
+        # that input and painting get in between the two halves.
+        self._threshold_later = Throttled(self._threshold_changed, 0, self)
         self.listen(session, "selection", self.refresh)
         self.listen(session, "rungs", self._rungs_changed)
         self.listen(session, "threshold", self._threshold_changed)
@@ -219,7 +223,7 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self._put_threshold()
         self._show_map()
         self._fill_static_rows()
-        self._threshold_changed()
+        self._threshold_later.request()
 
     def _put_threshold(self) -> None:
         t = self.session.threshold
@@ -248,6 +252,7 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self._set_row(2, None if r is None else r.test)
 
     def _threshold_changed(self) -> None:
+        self._threshold_later.cancel()
         s = self.session
         self._put_threshold()
         m = s.threshold_metrics()

@@ -7,8 +7,9 @@ import math
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
 from pixelfit.app.session import Session
 from pixelfit.app.widgets import Listens, Throttled
+from pixelfit.errors import PixelfitError
 from pixelfit.ladder import Rung
-from pixelfit.models import FAMILIES
+from pixelfit.models import FAMILIES, FAMILY_ORDER
 
 #: One colour per family, so a family keeps its colour in the plot and the table.
 FAMILY_RGB = {"constant": (110, 110, 110), "lut": (46, 92, 160), "nb": (40, 150, 70), "logistic": (150, 60, 150),
@@ -239,7 +240,7 @@ class ErrorPlot(Listens, pg.PlotWidget):
         self.addItem(self.marker)
         self._redraw_later = Throttled(self.redraw, PLOT_INTERVAL_MS, self)
         self.listen(session, "rungs", self._redraw_later.request)
-        self.listen(session, "run", self._redraw_later.flush)
+        self.listen(session, "run", self._run_changed)
         self.listen(session, "selection", self._mark)
         self.redraw()
 
@@ -257,6 +258,26 @@ class ErrorPlot(Listens, pg.PlotWidget):
             if kind == "cv":
                 self.legend.addItem(item, family)
         return item
+
+    def _run_changed(self) -> None:
+        if self.session.running:
+            # The legend gets the run's families now, not one by one as their first rungs
+            # arrive: each new entry lays the legend out and paints the plot again mid-climb.
+            try:
+                families = [f for f in FAMILY_ORDER if f in {fam for fam, _ in self.session.plan()}]
+            except PixelfitError:
+                families = []
+            for (fam, kind), item in list(self._curves.items()):
+                if fam not in families:
+                    if kind == "cv":
+                        self.legend.removeItem(item)
+                    self.getPlotItem().removeItem(item)
+                    del self._curves[(fam, kind)]
+                    self._drawn.pop((fam, kind), None)
+            for fam in families:
+                for kind in KIND_STYLE:
+                    self._curve(fam, kind)
+        self._redraw_later.flush()
 
     def _changed(self, what, value) -> bool:
         """True (and remembered) when ``value`` differs from what ``what`` was last given."""
