@@ -338,3 +338,29 @@ def test_start_on_demo_set_or_ask_for_a_folder(qtbot, window, class_folder, tmp_
     monkeypatch.setattr("pixelfit.cli.resolve_dataset_path", lambda name: class_folder)
     main_window._open_initial(w, None)
     assert w.session.dataset is not None and w.session.dataset.source == str(class_folder)
+
+
+def test_throttled_folds_requests_into_one_call(qtbot):
+    """Requests in a burst cost one call; the last one always gets it; flush calls at once."""
+    import time
+
+    from pixelfit.app.widgets import Throttled
+
+    parent = QtCore.QObject()
+    calls: list[float] = []
+    later = Throttled(lambda: calls.append(time.perf_counter()), 200, parent)
+    later.request()
+    later.request()
+    assert calls == []  # runs on the event loop, not inside the request
+    qtbot.waitUntil(lambda: len(calls) == 1, timeout=1000)
+    for _ in range(5):
+        later.request()
+    assert later.pending and len(calls) == 1
+    later.flush()
+    assert len(calls) == 2 and not later.pending
+    later.request()
+    qtbot.waitUntil(lambda: len(calls) == 3, timeout=2000)
+    # Qt may fire a coarse timer up to 5 % early (QTimer docs), hence 0.19 s for 200 ms.
+    assert calls[2] - calls[1] >= 0.19
+    qtbot.wait(300)
+    assert len(calls) == 3  # nothing more was asked for
