@@ -177,11 +177,50 @@ def test_halt_keeps_finished_rungs(qtbot, window, tmp_path):
     assert w.start_climb()
     qtbot.waitUntil(lambda: len(s.rungs) >= 1, timeout=30_000)
     assert s.running and w.table.model().rowCount() == len(s.rungs)  # rungs show as they finish
+    locked = (w.prep_panel.method, w.prep_panel.invert, w.report.positive, w.climb.folds)
+    assert not any(c.isEnabled() for c in locked)  # the data and settings stay put while it climbs
     w.act_halt.trigger()
     qtbot.waitUntil(lambda: not s.running, timeout=30_000)
+    assert all(c.isEnabled() for c in locked)
     assert 1 <= len(s.rungs) < s.planned
     assert "halted" in w.strip.text.text()
     assert w.worker is None and w.act_climb.isEnabled()
+
+
+def test_halt_before_the_thread_starts(qtbot, window, class_folder):
+    """The ladder thread starts a moment after the climb; a halt in that moment ends the run."""
+    w, s = window, window.session
+    assert w.open_path(class_folder)
+    assert w.start_climb()
+    w.act_halt.trigger()
+    assert s.running
+    qtbot.waitUntil(lambda: not s.running, timeout=5_000)
+    assert s.rungs == [] and "halted: 0 of" in w.strip.text.text()
+    assert w.worker is None and w.act_climb.isEnabled()
+
+
+def test_climb_again_replaces_rows_and_plot(qtbot, window, class_folder, answers):
+    """A second climb drops the old rungs from every panel (the selection was still on an old
+    rung when the table emptied) and shows the new ones, row for rung, point for rung."""
+    w, s = window, window.session
+    assert w.open_path(class_folder)
+    climb(qtbot, w, **SMALL)
+    first = list(s.rungs)
+    climb(qtbot, w, families=["constant", "tree"], max_size=3, folds=2)
+    assert answers.asked == ["Replace the trained rungs?"]
+    assert [r.key for r in s.rungs] == ["constant-0", "tree-1", "tree-2", "tree-3"]
+    assert not any(r is old for r in s.rungs for old in first)
+    model = w.table.model()
+    assert [model.index(i, 0).data().lstrip("★ ") for i in range(model.rowCount())] == [r.key for r in s.rungs]
+    assert sorted(p.data() for p in w.error_plot.points.points()) == sorted(r.key for r in s.rungs)
+    rec = s.rungs.index(s.recommended)
+    assert model.index(rec, 0).data() == "★ " + s.recommended.key
+    assert w.table.selectionModel().currentIndex().row() == s.rungs.index(s.selected)
+    # The held-out figures of the new selection follow on the next turn of the event loop.
+    qtbot.waitUntil(lambda: w.inspector.confusion.item(0, 0).text() == str(s.threshold_metrics()["tp"]))
+    # The legend lists this run's families only.
+    legend = [label.text for _, label in w.error_plot.legend.items]
+    assert "constant" in legend and "tree" in legend and "lut" not in legend
 
 
 def test_errors_stay_in_the_window(qtbot, window, tmp_path, class_folder, monkeypatch):
@@ -299,3 +338,29 @@ def test_start_on_demo_set_or_ask_for_a_folder(qtbot, window, class_folder, tmp_
     monkeypatch.setattr("pixelfit.cli.resolve_dataset_path", lambda name: class_folder)
     main_window._open_initial(w, None)
     assert w.session.dataset is not None and w.session.dataset.source == str(class_folder)
+
+
+def test_throttled_folds_requests_into_one_call(qtbot):
+    """Requests in a burst cost one call; the last one always gets it; flush calls at once."""
+    import time
+
+    from pixelfit.app.widgets import Throttled
+
+    parent = QtCore.QObject()
+    calls: list[float] = []
+    later = Throttled(lambda: calls.append(time.perf_counter()), 200, parent)
+    later.request()
+    later.request()
+    assert calls == []  # runs on the event loop, not inside the request
+    qtbot.waitUntil(lambda: len(calls) == 1, timeout=1000)
+    for _ in range(5):
+        later.request()
+    assert later.pending and len(calls) == 1
+    later.flush()
+    assert len(calls) == 2 and not later.pending
+    later.request()
+    qtbot.waitUntil(lambda: len(calls) == 3, timeout=2000)
+    # Qt may fire a coarse timer up to 5 % early (QTimer docs), hence 0.19 s for 200 ms.
+    assert calls[2] - calls[1] >= 0.19
+    qtbot.wait(300)
+    assert len(calls) == 3  # nothing more was asked for

@@ -89,6 +89,7 @@ class Session:
         self.target_precision: float | None = 0.95
         self.saved_paths: list[Path] = []
         self._data_maps: tuple[Prepared, dict[str, np.ndarray]] | None = None  # maps of one prepared set
+        self._at_threshold: tuple | None = None  # (rung, threshold, prepared set, metrics) last computed
 
     # ---- events -------------------------------------------------------------------------------
 
@@ -275,6 +276,7 @@ class Session:
         self.recommended = None
         self.saved_paths = []
         self.run_prep = None
+        self._at_threshold = None
         if had:
             self._emit("rungs")
         if self.selected is not None:
@@ -339,11 +341,19 @@ class Session:
         return np.asarray(r.test_pred, bool)
 
     def threshold_metrics(self) -> dict | None:
-        """Held-out metrics of the selected rung at the current threshold (core metrics)."""
+        """Held-out metrics of the selected rung at the current threshold (core metrics).
+
+        Kept for the last (rung, threshold): the inspector asks more than once per change, and
+        each computation is some milliseconds of Python on the GUI thread.
+        """
         pred = self.held_out_predictions()
         if pred is None:
             return None
-        return detection_metrics(self.run_prep.y_test, pred)
+        last = self._at_threshold
+        if last is None or last[0] is not self.selected or last[1] != self.threshold or last[2] is not self.run_prep:
+            last = self._at_threshold = (self.selected, self.threshold, self.run_prep,
+                                         detection_metrics(self.run_prep.y_test, pred))
+        return dict(last[3])
 
     def target_point(self) -> dict | None:
         """The held-out operating point meeting the target precision with the most recall."""

@@ -3,6 +3,12 @@
 The worker never touches a widget or the session. Each progress record goes out as a signal,
 which Qt queues to the GUI thread; cancelling sets a plain ``threading.Event``, which the ladder polls
 between steps through its cancel callback (no Qt call is made from the worker thread). Errors come back as a message string.
+
+While the worker runs Python it holds the interpreter lock, and every Python call the GUI thread
+makes meanwhile (a slot, a plot item's paint method) waits for it. No single call of the ladder
+holds it for long (at most 14 ms measured), so the window stays responsive by making few Python
+calls per update, not by a shorter ``sys.setswitchinterval``, which measured no better than the
+default here; see benchmarks/README.md (bench_gui_stall.py).
 """
 
 from __future__ import annotations
@@ -39,6 +45,15 @@ class LadderWorker(QtCore.QThread):
 
     def cancel(self) -> None:
         self._cancel.set()
+
+    def start_unless_cancelled(self) -> None:
+        """Start the thread; a run cancelled before it began ends at once, as 'cancelled'."""
+        if self.isRunning() or self.isFinished():
+            return
+        if self._cancel.is_set():
+            self.ended.emit("cancelled", "")
+        else:
+            self.start()
 
     def run(self) -> None:  # runs in the worker thread
         spec = self._spec

@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import time
 from collections.abc import Callable
 
+from pixelfit.app._qt import QtCore
 from pixelfit.app.session import Session
 
 
@@ -19,3 +21,51 @@ class Listens:
         for off in getattr(self, "_unsubscribers", []):
             off()
         self._unsubscribers = []
+
+
+class Throttled:
+    """Calls ``fn()`` on the event loop, at most once per ``interval_ms``, however often it is asked.
+
+    Requests that come while a call is pending fold into it, so a burst of session events (a rung
+    and the progress step that comes with it) costs one redraw, and the last request always gets
+    its call. A request long after the previous call runs on the next turn of the event loop.
+    :meth:`flush` makes a pending call now (a run ended: show the final state at once).
+
+    Parameters
+    ----------
+    fn : callable taking no arguments
+    interval_ms : int
+        least time between the starts of two calls
+    parent : QObject
+        owns the timer; the timer dies with it
+    """
+
+    def __init__(self, fn: Callable[[], None], interval_ms: int, parent: QtCore.QObject):
+        self.fn = fn
+        self.interval_ms = interval_ms
+        self._last = float("-inf")
+        self._timer = QtCore.QTimer(parent)
+        self._timer.setSingleShot(True)
+        self._timer.timeout.connect(self._fire)
+
+    @property
+    def pending(self) -> bool:
+        return self._timer.isActive()
+
+    def request(self) -> None:
+        if self._timer.isActive():
+            return
+        wait_ms = (self._last - time.perf_counter()) * 1000 + self.interval_ms  # -inf before the first call
+        self._timer.start(int(max(0.0, wait_ms)))
+
+    def flush(self) -> None:
+        if self._timer.isActive():
+            self._timer.stop()
+            self._fire()
+
+    def cancel(self) -> None:
+        self._timer.stop()
+
+    def _fire(self) -> None:
+        self._last = time.perf_counter()
+        self.fn()

@@ -4,8 +4,11 @@ from __future__ import annotations
 
 from pixelfit.app._qt import QtCore, QtWidgets
 from pixelfit.app.session import Session, family_names
-from pixelfit.app.widgets import Listens
+from pixelfit.app.widgets import Listens, Throttled
 from pixelfit.errors import PixelfitError
+
+#: Least time between two redraws of the progress bar and step line while a ladder climbs.
+PROGRESS_INTERVAL_MS = 100
 
 
 class ClimbPanel(Listens, QtWidgets.QGroupBox):
@@ -44,6 +47,7 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
         self.bar = QtWidgets.QProgressBar()
         self.bar.setTextVisible(True)
         self.step = QtWidgets.QLabel("")
+        self._progress_later = Throttled(self._show_progress, PROGRESS_INTERVAL_MS, self)
         form = QtWidgets.QFormLayout(self)
         form.addRow(grid)
         form.addRow("largest size", self.max_size)
@@ -58,7 +62,7 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
         self.listen(session, "settings", self.refresh)
         self.listen(session, "prep", self.refresh)
         self.listen(session, "run", self.refresh)
-        self.listen(session, "progress", self._progress)
+        self.listen(session, "progress", self._progress_later.request)
         self.refresh()
 
     def _write_back(self, *_):
@@ -68,6 +72,7 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
 
     def refresh(self) -> None:
         s = self.session
+        self._progress_later.flush()  # a run that ended shows its last step
         for name, cb in self.checks.items():
             cb.blockSignals(True)
             cb.setChecked(name in s.families)
@@ -90,10 +95,16 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
             self.bar.setRange(0, 1)
             self.bar.setValue(0)
 
-    def _progress(self) -> None:
+    def _show_progress(self) -> None:
         done, total, message = self.session.progress_state
         if total:
+            # QProgressBar.setValue repaints at once, and a synchronous repaint also paints every
+            # other dirty widget of the window (the plot and table a rung has just changed) in
+            # this call. With updates off it only marks itself; turning them on queues an update,
+            # painted with the rest of the window on the next turn of the event loop.
+            self.bar.setUpdatesEnabled(False)
             self.bar.setRange(0, total)
             self.bar.setValue(done)
+            self.bar.setUpdatesEnabled(True)
         self.step.setText(message)
 

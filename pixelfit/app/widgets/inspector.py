@@ -4,14 +4,16 @@ from __future__ import annotations
 
 import numpy as np
 
-from pixelfit.app._qt import QtCore, QtWidgets, pg
+from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
 from pixelfit.app.images import enlarged_pixmap, signed_colormap, symmetric_levels
 from pixelfit.app.session import MAP_KINDS, Session
-from pixelfit.app.widgets import Listens
+from pixelfit.app.widgets import Listens, Throttled
 from pixelfit.models import FAMILIES
 
 #: Thumbnails of misses shown per kind; the count says how many there are in all.
 MAX_MISSES = 48
+#: Miss thumbnails kept for reuse before the store starts afresh.
+MAX_THUMBS = 4096
 SLIDER_STEPS = 1000
 
 
@@ -111,6 +113,8 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self.fn_label = QtWidgets.QLabel("")
         self.fp_list = self._thumb_list()
         self.fn_list = self._thumb_list()
+        # Thumbnails of misses by dataset row: the same patches are missed by rung after rung.
+        self._thumbs: tuple[object, dict[int, QtGui.QPixmap]] = (None, {})
 
         top = QtWidgets.QHBoxLayout()
         top.addWidget(self.title, 1)
@@ -151,6 +155,10 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self.slider_value.valueChanged.connect(session.set_threshold)
         self.target.valueChanged.connect(lambda v: session.set_target_precision(v or None))
         self.go_target.clicked.connect(self._go_to_target)
+        # A new selection shows its title, map and fixed rows at once and the held-out figures at
+        # the threshold (core metrics, miss thumbnails) on the next turn of the event loop, so
+        # that input and painting get in between the two halves.
+        self._threshold_later = Throttled(self._threshold_changed, 0, self)
         self.listen(session, "selection", self.refresh)
         self.listen(session, "rungs", self._rungs_changed)
         self.listen(session, "threshold", self._threshold_changed)
@@ -215,7 +223,7 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self._put_threshold()
         self._show_map()
         self._fill_static_rows()
-        self._threshold_changed()
+        self._threshold_later.request()
 
     def _put_threshold(self) -> None:
         t = self.session.threshold
@@ -244,6 +252,7 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self._set_row(2, None if r is None else r.test)
 
     def _threshold_changed(self) -> None:
+        self._threshold_later.cancel()
         s = self.session
         self._put_threshold()
         m = s.threshold_metrics()
@@ -306,8 +315,14 @@ class RungInspector(Listens, QtWidgets.QWidget):
             if ds is None:
                 continue
             lst.setIconSize(QtCore.QSize(ds.shape[1] * 3, ds.shape[0] * 3))
+            if self._thumbs[0] is not ds or len(self._thumbs[1]) > MAX_THUMBS:
+                self._thumbs = (ds, {})
+            thumbs = self._thumbs[1]
             for i in shown:
-                item = QtWidgets.QListWidgetItem(enlarged_pixmap(ds.images[i], 3), "")
+                pix = thumbs.get(int(i))
+                if pix is None:
+                    pix = thumbs[int(i)] = enlarged_pixmap(ds.images[i], 3)
+                item = QtWidgets.QListWidgetItem(pix, "")
                 item.setToolTip(f"{ds.names[i]}: {ds.labels[i]}")
                 item.setData(QtCore.Qt.ItemDataRole.UserRole, int(i))
                 lst.addItem(item)

@@ -6,11 +6,10 @@ import math
 
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
 from pixelfit.app.session import Session
-from pixelfit.app.widgets import Listens
+from pixelfit.app.widgets import Listens, Throttled
+from pixelfit.errors import PixelfitError
 from pixelfit.ladder import Rung
-from pixelfit.models import FAMILIES
-
-Role = QtCore.Qt.ItemDataRole
+from pixelfit.models import FAMILIES, FAMILY_ORDER
 
 #: One colour per family, so a family keeps its colour in the plot and the table.
 FAMILY_RGB = {"constant": (110, 110, 110), "lut": (46, 92, 160), "nb": (40, 150, 70), "logistic": (150, 60, 150),
@@ -19,6 +18,12 @@ FAMILY_RGB = {"constant": (110, 110, 110), "lut": (46, 92, 160), "nb": (40, 150,
 KIND_STYLE = {"train": QtCore.Qt.PenStyle.DashLine, "cv": QtCore.Qt.PenStyle.SolidLine,
               "test": QtCore.Qt.PenStyle.DotLine, "bound": QtCore.Qt.PenStyle.DashDotLine}
 KIND_LABEL = {"train": "train error", "cv": "CV error", "test": "held-out error", "bound": "bound (95 %)"}
+#: Least time between two redraws of the error plot, and between two fits of the table's column
+#: widths to their contents, while rungs arrive; see benchmarks/bench_gui_stall.py.
+PLOT_INTERVAL_MS = 500
+COLUMN_FIT_INTERVAL_MS = 1000
+#: Pixels for the error-rate tick labels ("0.05" ... "1.0") beside the axis title.
+LEFT_AXIS_WIDTH = 46
 
 
 def _num(v, digits: int = 3) -> str:
@@ -57,55 +62,87 @@ COLUMNS: list[tuple[str, str, callable]] = [
 ]
 
 
-class LadderTableModel(QtCore.QAbstractTableModel):
-    """Read-only view of ``session.rungs``."""
+def _tooltip(r: Rung) -> str:
+    lines = list(r.notes)
+    vs = r.versus_smaller
+    if vs:
+        verdict = "significantly better" if vs["significant"] else "not significantly better"
+        lines.append(f"vs {r.family}-{vs['size']}: {verdict} on held-out patches (McNemar p = {vs['p_value']:.3g})")
+    return "\n".join(lines)
+
+
+def _row_look(r: Rung) -> tuple[tuple[str, ...], bool, str]:
+    """Everything a rung's row shows: the cell texts, the recommended mark, the tooltip."""
+    return tuple(cell(r) for _, _, cell in COLUMNS), bool(r.recommended), _tooltip(r)
+
+
+class LadderTableModel(QtGui.QStandardItemModel):
+    """The rows of ``session.rungs``, written into Qt's own item store.
+
+    Painting a table asks its model for every role of every visible cell; with a Python model
+    each of those thousands of calls must take the interpreter lock, and while the ladder worker
+    holds it each one waits. Here the cells are written in Python once per change and painted
+    from Qt's items without entering Python. :meth:`follow` appends the rows of new rungs and
+    rewrites only the rows whose text or marks changed.
+    """
 
     def __init__(self, session: Session, parent=None):
-        super().__init__(parent)
+        super().__init__(0, len(COLUMNS), parent)
+        for c, (head, tip, _) in enumerate(COLUMNS):
+            item = QtGui.QStandardItem(head)
+            item.setToolTip(tip)
+            self.setHorizontalHeaderItem(c, item)
         self.session = session
+        self.rows: list[Rung] = []
+        self._looks: list[tuple] = []
+        self.follow()
 
     def reset(self) -> None:
-        self.beginResetModel()
-        self.endResetModel()
+        self.setRowCount(0)
+        self.rows, self._looks = [], []
+        self.follow()
 
-    def rowCount(self, parent=None) -> int:
-        return 0 if parent is not None and parent.isValid() else len(self.session.rungs)
+    def follow(self) -> bool:
+        """Catch up with ``session.rungs``; True when that took a reset rather than appended rows."""
+        now = self.session.rungs
+        if len(now) < len(self.rows) or any(a is not b for a, b in zip(self.rows, now)):
+            self.setRowCount(0)
+            self.rows, self._looks = [], []
+            reset = True
+        else:
+            reset = False
+        for i, r in enumerate(now):
+            look = _row_look(r)
+            if i == len(self.rows):
+                self.appendRow(self._items(r, look))
+                self.rows.append(r)
+                self._looks.append(look)
+            elif look != self._looks[i]:  # the recommended mark or a comparison moved
+                for c, item in enumerate(self._items(r, look)):
+                    self.setItem(i, c, item)
+                self._looks[i] = look
+        return reset
 
-    def columnCount(self, parent=None) -> int:
-        return 0 if parent is not None and parent.isValid() else len(COLUMNS)
-
-    def headerData(self, section, orientation, role=Role.DisplayRole):
-        if orientation == QtCore.Qt.Orientation.Horizontal:
-            if role == Role.DisplayRole:
-                return COLUMNS[section][0]
-            if role == Role.ToolTipRole:
-                return COLUMNS[section][1]
-        return None
-
-    def data(self, index, role=Role.DisplayRole):
-        if not index.isValid():
-            return None
-        r: Rung = self.session.rungs[index.row()]
-        if role == Role.DisplayRole:
-            return COLUMNS[index.column()][2](r)
-        if role == Role.FontRole and r.recommended:
-            f = QtGui.QFont()
-            f.setBold(True)
-            return f
-        if role == Role.ForegroundRole and index.column() == 0:
-            return QtGui.QBrush(QtGui.QColor(*FAMILY_RGB.get(r.family, (0, 0, 0))))
-        if role == Role.BackgroundRole and r.recommended:
-            return QtGui.QBrush(QtGui.QColor(232, 244, 234))
-        if role == Role.ToolTipRole:
-            lines = list(r.notes)
-            vs = r.versus_smaller
-            if vs:
-                verdict = "significantly better" if vs["significant"] else "not significantly better"
-                lines.append(f"vs {r.family}-{vs['size']}: {verdict} on held-out patches (McNemar p = {vs['p_value']:.3g})")
-            return "\n".join(lines) or None
-        if role == Role.TextAlignmentRole and index.column() > 0:
-            return int(QtCore.Qt.AlignmentFlag.AlignRight | QtCore.Qt.AlignmentFlag.AlignVCenter)
-        return None
+    @staticmethod
+    def _items(r: Rung, look: tuple) -> list[QtGui.QStandardItem]:
+        texts, recommended, tip = look
+        items = []
+        for c, text in enumerate(texts):
+            item = QtGui.QStandardItem(text)
+            item.setEditable(False)
+            if c == 0:
+                item.setForeground(QtGui.QBrush(QtGui.QColor(*FAMILY_RGB.get(r.family, (0, 0, 0)))))
+            else:
+                item.setTextAlignment(QtCore.Qt.AlignmentFlag.AlignRight | QtCore.Qt.AlignmentFlag.AlignVCenter)
+            if recommended:
+                font = QtGui.QFont()
+                font.setBold(True)
+                item.setFont(font)
+                item.setBackground(QtGui.QBrush(QtGui.QColor(232, 244, 234)))
+            if tip:
+                item.setToolTip(tip)
+            items.append(item)
+        return items
 
 
 class LadderTable(Listens, QtWidgets.QTableView):
@@ -124,28 +161,32 @@ class LadderTable(Listens, QtWidgets.QTableView):
         self.horizontalHeader().setStretchLastSection(True)
         self.setAlternatingRowColors(True)
         self.selectionModel().currentRowChanged.connect(self._row_chosen)
+        # Fitting the columns measures every cell's text; once a second is enough while rungs come.
+        self._fit_columns = Throttled(self.resizeColumnsToContents, COLUMN_FIT_INTERVAL_MS, self)
         self.listen(session, "rungs", self._rungs_changed)
         self.listen(session, "selection", self._show_selection)
+        self.listen(session, "run", self._fit_columns.flush)
 
     def _row_chosen(self, current: QtCore.QModelIndex, _previous) -> None:
-        if current.isValid() and current.row() < len(self.session.rungs):
-            key = self.session.rungs[current.row()].key
+        rows = self.table_model.rows
+        if current.isValid() and current.row() < len(rows):
+            key = rows[current.row()].key
             if self.session.selected is None or self.session.selected.key != key:
                 self.session.select(key)
 
     def _rungs_changed(self) -> None:
-        self.table_model.reset()
-        self.resizeColumnsToContents()
+        self.table_model.follow()
+        self._fit_columns.request()
         self._show_selection()
 
     def _show_selection(self) -> None:
         sel = self.session.selected
         sm = self.selectionModel()
         sm.blockSignals(True)
-        if sel is None:
+        row = None if sel is None else next((i for i, r in enumerate(self.table_model.rows) if r is sel), None)
+        if row is None:  # nothing selected, or the rungs were just cleared and the selection follows
             sm.clearSelection()
         else:
-            row = self.session.rungs.index(sel)
             idx = self.table_model.index(row, 0)
             sm.setCurrentIndex(idx, QtCore.QItemSelectionModel.SelectionFlag.ClearAndSelect
                                | QtCore.QItemSelectionModel.SelectionFlag.Rows)
@@ -175,20 +216,31 @@ class ErrorPlot(Listens, pg.PlotWidget):
         pi = self.getPlotItem()
         pi.setLabel("left", "error rate")
         pi.getAxis("left").enableAutoSIPrefix(False)
+        # A fixed width for the error-rate ticks: sized to its texts, the axis would lay the plot
+        # out again (and paint it once more) whenever the range moves while rungs arrive.
+        pi.getAxis("left").setWidth(LEFT_AXIS_WIDTH)
         pi.setLabel("bottom", "size (log2 spacing)")
         pi.showGrid(x=True, y=True, alpha=0.25)
         self.legend = pi.addLegend(offset=(-10, 10), labelTextSize="8pt", colCount=2)
         for kind, style in KIND_STYLE.items():  # line style keys, in black, before the family colours
-            self.legend.addItem(pg.PlotDataItem(pen=pg.mkPen((0, 0, 0), width=1.5, style=style)), KIND_LABEL[kind])
+            self.legend.addItem(pg.PlotCurveItem(pen=pg.mkPen((0, 0, 0), width=1.5, style=style)), KIND_LABEL[kind])
         self.points = pg.ScatterPlotItem(size=9, hoverable=True, tip=None)
         self.points.sigClicked.connect(self._clicked)
         self.marker = pg.ScatterPlotItem(size=18, symbol="o", pen=pg.mkPen((0, 0, 0), width=2), brush=None)
-        # One curve item per (family, kind), made on first use and then only given new data: a
-        # rung arriving must cost the GUI thread little (see benchmarks/bench_gui_stall.py).
-        self._curves: dict[tuple[str, str], pg.PlotDataItem] = {}
+        # One curve item per (family, kind), made on first use and then only given new data when
+        # its data changed: a rung arriving must cost the GUI thread little (see
+        # benchmarks/bench_gui_stall.py). Rungs arriving together are drawn together, at most
+        # once per PLOT_INTERVAL_MS, and not at all while the plot is hidden behind another tab.
+        # Plain curve items: a PlotDataItem would add a scatter child and a wrapper per curve, and
+        # every graphics item is Python the GUI thread calls into on each paint.
+        self._curves: dict[tuple[str, str], pg.PlotCurveItem] = {}
+        self._drawn: dict[object, object] = {}  # what each curve, the points and the axes were last given
+        self._stale = False
         self.addItem(self.points)
         self.addItem(self.marker)
-        self.listen(session, "rungs", self.redraw)
+        self._redraw_later = Throttled(self.redraw, PLOT_INTERVAL_MS, self)
+        self.listen(session, "rungs", self._redraw_later.request)
+        self.listen(session, "run", self._run_changed)
         self.listen(session, "selection", self._mark)
         self.redraw()
 
@@ -196,45 +248,85 @@ class ErrorPlot(Listens, pg.PlotWidget):
         if len(points):
             self.session.select(points[0].data())
 
-    def _curve(self, family: str, kind: str) -> pg.PlotDataItem:
+    def _curve(self, family: str, kind: str) -> pg.PlotCurveItem:
         item = self._curves.get((family, kind))
         if item is None:
             rgb = FAMILY_RGB.get(family, (0, 0, 0))
-            item = pg.PlotDataItem(pen=pg.mkPen(rgb, width=2.5 if kind == "cv" else 1.5, style=KIND_STYLE[kind]))
+            item = pg.PlotCurveItem(pen=pg.mkPen(rgb, width=2.5 if kind == "cv" else 1.5, style=KIND_STYLE[kind]))
             self.getPlotItem().addItem(item)
             self._curves[(family, kind)] = item
             if kind == "cv":
                 self.legend.addItem(item, family)
         return item
 
+    def _run_changed(self) -> None:
+        if self.session.running:
+            # The legend gets the run's families now, not one by one as their first rungs
+            # arrive: each new entry lays the legend out and paints the plot again mid-climb.
+            try:
+                families = [f for f in FAMILY_ORDER if f in {fam for fam, _ in self.session.plan()}]
+            except PixelfitError:
+                families = []
+            for (fam, kind), item in list(self._curves.items()):
+                if fam not in families:
+                    if kind == "cv":
+                        self.legend.removeItem(item)
+                    self.getPlotItem().removeItem(item)
+                    del self._curves[(fam, kind)]
+                    self._drawn.pop((fam, kind), None)
+            for fam in families:
+                for kind in KIND_STYLE:
+                    self._curve(fam, kind)
+        self._redraw_later.flush()
+
+    def _changed(self, what, value) -> bool:
+        """True (and remembered) when ``value`` differs from what ``what`` was last given."""
+        if what in self._drawn and self._drawn[what] == value:
+            return False
+        self._drawn[what] = value
+        return True
+
+    def showEvent(self, event) -> None:
+        super().showEvent(event)
+        if self._stale:
+            self.redraw()
+
     def redraw(self) -> None:
+        if not self.isVisible():
+            self._stale = True
+            return
+        self._stale = False
+        self._redraw_later.cancel()
         pi = self.getPlotItem()
         curves = self.session.error_curves()
         sizes = set()
         for key, item in self._curves.items():
-            if key[0] not in curves:
+            if key[0] not in curves and self._changed(key, ((), ())):
                 item.setData([], [])
         for fam, kinds in curves.items():
             for kind, pts in kinds.items():
                 sizes.update(s for s, _ in pts)
-                xs = [size_position(s) for s, e in pts if e is not None]
-                ys = [min(1.0, e) for s, e in pts if e is not None]
-                if xs or (fam, kind) in self._curves:
-                    self._curve(fam, kind).setData(xs, ys)
-        spots = []
-        for r in self.session.rungs:
-            rgb = FAMILY_RGB.get(r.family, (0, 0, 0))
-            spots.append({"pos": (size_position(r.size), min(1.0, _point_error(r))), "data": r.key,
-                          "brush": pg.mkBrush(*rgb), "pen": pg.mkPen("w"),
-                          "symbol": "star" if r.recommended else "o", "size": 16 if r.recommended else 9})
-        self.points.setData(spots)
+                xs = tuple(size_position(s) for s, e in pts if e is not None)
+                ys = tuple(min(1.0, e) for s, e in pts if e is not None)
+                if (xs or (fam, kind) in self._curves) and self._changed((fam, kind), (xs, ys)):
+                    self._curve(fam, kind).setData(list(xs), list(ys))
+        rungs = self.session.rungs
+        spots = tuple((r.key, size_position(r.size), min(1.0, _point_error(r)), r.recommended) for r in rungs)
+        if self._changed("points", spots):
+            self.points.setData(
+                x=[p[1] for p in spots], y=[p[2] for p in spots], data=[p[0] for p in spots],
+                brush=[pg.mkBrush(*FAMILY_RGB.get(r.family, (0, 0, 0))) for r in rungs], pen=pg.mkPen("w"),
+                symbol=["star" if p[3] else "o" for p in spots], size=[16 if p[3] else 9 for p in spots])
         shown = [e for kinds in curves.values() for pts in kinds.values() for _, e in pts if e is not None]
-        pi.setYRange(0, min(1.0, max(shown, default=1.0) * 1.1 + 0.02), padding=0)
+        top = min(1.0, max(shown, default=1.0) * 1.1 + 0.02)
+        if self._changed("y", top):
+            pi.setYRange(0, top, padding=0)
         ticks = [(size_position(s), str(s)) for s in sorted(sizes)]
-        pi.getAxis("bottom").setTicks([ticks])
-        if sizes:
-            xs = [t[0] for t in ticks]
-            pi.setXRange(min(xs) - 0.3, max(xs) + 0.3, padding=0)
+        if self._changed("x", tuple(ticks)):
+            pi.getAxis("bottom").setTicks([ticks])
+            if sizes:
+                xs = [t[0] for t in ticks]
+                pi.setXRange(min(xs) - 0.3, max(xs) + 0.3, padding=0)
         self._mark()
 
     def _mark(self) -> None:

@@ -55,7 +55,8 @@ class PixelPrep(Listens, QtWidgets.QGroupBox):
         self.invert.toggled.connect(self._write_back)
         self.line.sigPositionChanged.connect(self._line_moved)
         self.listen(session, "prep", self.refresh)
-        self.listen(session, "run", self.refresh)
+        # A run starting or ending only locks or frees the controls: the histogram stays as it is.
+        self.listen(session, "run", self._enable)
         self.refresh()
 
     def _write_back(self, *_):
@@ -69,6 +70,13 @@ class PixelPrep(Listens, QtWidgets.QGroupBox):
             if level != self.level.value():
                 self.level.setValue(max(0, min(256, level)))  # writes back through valueChanged
 
+    def _enable(self) -> None:
+        s = self.session
+        fixed = s.binarizer.method == "fixed"
+        for w in (self.method, self.level, self.invert):
+            w.setEnabled(not s.running and (w is not self.level or fixed))
+        self.line.setMovable(fixed and not s.running)
+
     def refresh(self) -> None:
         s = self.session
         b = s.binarizer
@@ -80,11 +88,7 @@ class PixelPrep(Listens, QtWidgets.QGroupBox):
         self.invert.setChecked(b.invert)
         for w in (self.method, self.level, self.invert):
             w.blockSignals(False)
-        self.level.setEnabled(b.method == "fixed")
-        for w in (self.method, self.level, self.invert):
-            w.setEnabled(w is not self.level or b.method == "fixed")
-            if s.running:
-                w.setEnabled(False)
+        self._enable()
         counts, thresholds = s.histogram()
         edges = np.arange(257, dtype=np.float64)
         self.counts_curve.setData(edges, counts.astype(np.float64))
@@ -97,7 +101,6 @@ class PixelPrep(Listens, QtWidgets.QGroupBox):
             self.patch_curve.setData([], [])
             self.line.setVisible(True)
             self.line.setValue(float(thresholds[0]))
-            self.line.setMovable(b.method == "fixed" and not s.running)
             rule = ">=" if b.method == "fixed" else ">"
             drag = "; drag the line to move it" if b.method == "fixed" else ""
             self.caption.setText(f"1 where grey {rule} {thresholds[0]:g}{' (then inverted)' if b.invert else ''}{drag}")

@@ -32,11 +32,16 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
         self.positive.activated.connect(self._positive_chosen)
         self.listen(session, "dataset", self.refresh)
         self.listen(session, "prep", self.refresh)
-        self.listen(session, "run", self.refresh)
+        # A run starting or ending only locks or frees the class choice; the report stays.
+        self.listen(session, "run", self._enable)
         self.refresh()
 
     def _positive_chosen(self, index: int) -> None:
         self.session.set_positive(self.positive.itemData(index))
+
+    def _enable(self) -> None:
+        ds = self.session.dataset
+        self.positive.setEnabled(ds is not None and len(ds.counts) > 1 and not self.session.running)
 
     def refresh(self) -> None:
         s = self.session
@@ -63,7 +68,7 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
             self.positive.addItem(c, c)
         if s.positive is not None:
             self.positive.setCurrentIndex(self.positive.findData(s.positive))
-        self.positive.setEnabled(len(ds.counts) > 1 and not s.running)
+        self._enable()
         self.positive.blockSignals(False)
         n = len(ds.skipped)
         self.skipped_label.setText(f"skipped {n} file(s):" if n else "skipped nothing")
