@@ -396,18 +396,24 @@ class Session:
         if r is None:
             self.say("select a rung to save first", True)
             return None
-        try:
-            out = Path(save_rung(path, self.run_prep, r))
-        except PixelfitError as exc:
-            self.say(str(exc), True)
+        written = self._write(path, lambda: save_rung(path, self.run_prep, r))
+        if written is None:
             return None
-        except OSError as exc:
-            self.say(f"{path}: cannot write ({exc.strerror or exc})", True)
-            return None
+        out = Path(written)
         r.rule_file = str(out)
         self.saved_paths.append(out)
         self.say(f"saved {r.key} to {out}")
         return out
+
+    def _write(self, path, write: Callable[[], object]):
+        """Run a file-writing call; a refusal or an OS error becomes a message and None."""
+        try:
+            return write()
+        except PixelfitError as exc:
+            self.say(str(exc), True)
+        except OSError as exc:
+            self.say(f"{path}: cannot write ({exc.strerror or exc})", True)
+        return None
 
     def export_selected_c(self, header_path: str | os.PathLike) -> tuple[Path, Path] | None:
         """Save the selected rung beside ``header_path`` (same stem, .json) and export C from it."""
@@ -415,14 +421,10 @@ class Session:
         saved = self.save_selected(header_path.with_suffix(".json"))
         if saved is None:
             return None
-        try:
-            header, vectors = export_c(load_rule(saved), header_path)
-        except PixelfitError as exc:
-            self.say(str(exc), True)
+        written = self._write(header_path, lambda: export_c(load_rule(saved), header_path))
+        if written is None:
             return None
-        except OSError as exc:
-            self.say(f"{header_path}: cannot write ({exc.strerror or exc})", True)
-            return None
+        header, vectors = written
         self.say(f"exported {self.selected.key} as C to {header} (test vectors {vectors})")
         return Path(header), Path(vectors)
 
