@@ -157,8 +157,9 @@ class Binarizer:
         if self.method == "mean-patch":
             return flat.mean(axis=1)
         if self.method == "otsu-patch":
-            hist = np.zeros((len(flat), 256), np.float64)
-            np.add.at(hist, (np.repeat(np.arange(len(flat)), flat.shape[1]), flat.ravel()), 1.0)
+            # One bincount over (patch, level) codes gives every patch's histogram at once.
+            codes = (np.arange(len(flat), dtype=np.intp)[:, None] * 256 + flat).ravel()
+            hist = np.bincount(codes, minlength=len(flat) * 256).reshape(len(flat), 256).astype(np.float64)
             return _otsu_from_hist(hist).astype(np.float64)
         raise PixelfitError(f"{self.method} has one global threshold, not one per patch")
 
