@@ -104,8 +104,7 @@ def _body(rule: Rule, ident: str, P: str) -> tuple[list[str], list[str], bool]:
     elif f == "nb":
         px = rule._pixels
         k = len(px)
-        on = rule._on
-        off = np.log(1 - np.exp(on))
+        on, off = rule._on, rule._off
         base = rule._prior + off.sum(axis=1)
         tables.append(f"static const uint16_t {ident}_pixels[{max(1, k)}] = {{\n{_rows(px if k else [0])}\n}};")
         for c, name in ((0, "neg"), (1, "pos")):

@@ -332,6 +332,7 @@ class Rule:
             self._on = _array(m["log_prob_on"], "model/log_prob_on", (2, k))
             if (self._on >= 0).any():
                 raise RuleFileError("model/log_prob_on: log probabilities must be below 0")
+            self._off = np.log(1 - np.exp(self._on))  # as scikit-learn's BernoulliNB derives it
             _array(m["weights"], "model/weights", self.shape)
         elif f == "logistic":
             self._coef = _array(m["weights"], "model/weights", self.shape).reshape(1, -1)
@@ -402,7 +403,7 @@ class Rule:
         if f == "nb":
             # The same arithmetic as scikit-learn's BernoulliNB joint log-likelihood.
             Xs = X[:, self._pixels].astype(np.float64)
-            off = np.log(1 - np.exp(self._on))
+            off = self._off
             jll = Xs @ (self._on - off).T + (self._prior + off.sum(axis=1))
             top = jll.max(axis=1, keepdims=True)
             log_norm = top[:, 0] + np.log(np.exp(jll - top).sum(axis=1))
