@@ -11,6 +11,7 @@ import time
 import warnings
 from collections.abc import Callable, Generator, Iterator
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 from sklearn.base import clone
@@ -72,7 +73,7 @@ class Prepared:
     def n_pixels(self) -> int:
         return self.shape[0] * self.shape[1]
 
-    @property
+    @cached_property
     def train_fingerprint(self) -> str:
         return fingerprint(self.X_train, self.y_train)
 
