@@ -135,6 +135,12 @@ BOTTLE_CAPS_SEED = 61001
 SOLDER_BRIDGES_SEED = 61002
 
 
+def _shuffled_classes(rng: np.random.Generator, counts: dict[str, int]) -> np.ndarray:
+    """Class names, ``counts[name]`` of each, in an order drawn from ``rng``."""
+    names = np.array([name for name, n in counts.items() for _ in range(n)])
+    return names[rng.permutation(len(names))]
+
+
 def bottle_caps(seed: int = BOTTLE_CAPS_SEED, n_capped: int = 1400, n_open: int = 600) -> DemoSet:
     """The ``bottle-caps`` set: 10x10 patches, classes ``capped`` and ``open``.
 
@@ -146,7 +152,7 @@ def bottle_caps(seed: int = BOTTLE_CAPS_SEED, n_capped: int = 1400, n_open: int 
     h = w = 10
     rng = np.random.default_rng(seed)
     grid = _grid(h, w)
-    truth = np.array(["capped"] * n_capped + ["open"] * n_open)[rng.permutation(n_capped + n_open)]
+    truth = _shuffled_classes(rng, {"capped": n_capped, "open": n_open})
     images = np.empty((len(truth), h, w), np.uint8)
     for i, cls in enumerate(truth):
         # The neck is roughly centred under the camera; the crop is loose by a couple of pixels.
@@ -184,7 +190,7 @@ def solder_bridges(seed: int = SOLDER_BRIDGES_SEED, n_bridge: int = 700, n_clear
     h = w = 12
     rng = np.random.default_rng(seed)
     grid = _grid(h, w)
-    truth = np.array(["bridge"] * n_bridge + ["clear"] * n_clear)[rng.permutation(n_bridge + n_clear)]
+    truth = _shuffled_classes(rng, {"bridge": n_bridge, "clear": n_clear})
     images = np.empty((len(truth), h, w), np.uint8)
     for i, cls in enumerate(truth):
         scene = np.full((h, w), rng.uniform(40.0, 60.0))  # solder mask between the pads
