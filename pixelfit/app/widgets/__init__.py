@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import time
 from collections.abc import Callable
 
@@ -46,6 +47,8 @@ class Throttled:
         self._last = float("-inf")
         self._timer = QtCore.QTimer(parent)
         self._timer.setSingleShot(True)
+        # A coarse timer may fire up to 5 % early, which would break the "least time" promise.
+        self._timer.setTimerType(QtCore.Qt.TimerType.PreciseTimer)
         self._timer.timeout.connect(self._fire)
 
     @property
@@ -56,7 +59,7 @@ class Throttled:
         if self._timer.isActive():
             return
         wait_ms = (self._last - time.perf_counter()) * 1000 + self.interval_ms  # -inf before the first call
-        self._timer.start(int(max(0.0, wait_ms)))
+        self._timer.start(0 if wait_ms <= 0 else math.ceil(wait_ms))
 
     def flush(self) -> None:
         if self._timer.isActive():
