@@ -243,7 +243,7 @@ def test_errors_stay_in_the_window(qtbot, window, tmp_path, class_folder, monkey
         raise RuntimeError("model exploded")
         yield
 
-    monkeypatch.setattr("pixelfit.app.workers.run_ladder", broken)
+    monkeypatch.setattr("pixelfit.app.workers.run_ladder_in_process", broken)
     climb(qtbot, w, **SMALL)
     assert w.strip.error and "model exploded" in w.strip.text.text()
     assert s.rungs == [] and w.worker is None
@@ -364,3 +364,50 @@ def test_throttled_folds_requests_into_one_call(qtbot):
     assert calls[2] - calls[1] >= 0.19
     qtbot.wait(300)
     assert len(calls) == 3  # nothing more was asked for
+
+
+def _trainers():
+    import multiprocessing
+
+    return [p for p in multiprocessing.active_children() if p.name == "pixelfit-trainer"]
+
+
+def _start_long_climb(qtbot, w, class_folder):
+    w.open_path(class_folder)
+    w.session.set_ladder(families=["constant", "lut", "nb", "logistic", "tree"], max_size=8, folds=5)
+    w.act_climb.trigger()
+    qtbot.waitUntil(lambda: len(_trainers()) == 1, timeout=20_000)
+
+
+def test_nothing_is_selected_for_the_user_until_the_climb_ends(qtbot, window, class_folder):
+    w, s = window, window.session
+    _start_long_climb(qtbot, w, class_folder)
+    qtbot.waitUntil(lambda: len(s.rungs) >= 2, timeout=30_000)
+    assert s.selected is None  # the inspector is left alone while rungs arrive
+    s.select("constant-0")  # ... but the user may look at any finished rung
+    qtbot.waitUntil(lambda: not s.running, timeout=60_000)
+    assert s.selected.key == "constant-0" != s.recommended.key  # the user's choice is kept
+
+
+def test_a_trainer_that_dies_is_reported_in_the_window(qtbot, window, class_folder):
+    import os
+    import signal
+
+    w, s = window, window.session
+    _start_long_climb(qtbot, w, class_folder)
+    os.kill(_trainers()[0].pid, signal.SIGKILL)
+    qtbot.waitUntil(lambda: not s.running, timeout=20_000)
+    assert w.strip.error and "ended without finishing" in w.strip.text.text()
+    assert w.worker is None and _trainers() == []
+    assert w.act_climb.isEnabled()  # and the user can climb again
+
+
+def test_closing_mid_climb_ends_the_trainer(qtbot, window, class_folder):
+    import time
+
+    w = window
+    _start_long_climb(qtbot, w, class_folder)
+    t = time.perf_counter()
+    w.stop_worker()
+    assert time.perf_counter() - t < 10
+    assert w.worker is None and _trainers() == []

@@ -8,6 +8,7 @@ import traceback
 from collections.abc import Callable
 from pathlib import Path
 
+from pixelfit import ladder_process
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets
 from pixelfit.app.session import Session
 from pixelfit.app.widgets.climb_panel import ClimbPanel
@@ -124,6 +125,9 @@ class MainWindow(QtWidgets.QMainWindow):
                              s.subscribe("dataset", self._dataset_opened)]
         self._update_actions()
         self.resize(1680, 1000)
+        # The trainer's fork server imports scikit-learn in its own process, so the first climb
+        # does not wait one to two seconds for it.
+        QtCore.QTimer.singleShot(0, self, _warm_up_trainer)
 
     # ---- actions ------------------------------------------------------------------------------
 
@@ -365,6 +369,13 @@ def _open_initial(window: MainWindow, path: str | None) -> None:
     else:
         window.session.say(f"the bundled demo set {DEMO_SET!r} is not here; open a folder of patches")
         QtCore.QTimer.singleShot(0, window.choose_folder)
+
+
+def _warm_up_trainer() -> None:
+    try:
+        ladder_process.warm_up()
+    except OSError as exc:  # the climb will start its trainer itself, and report if it cannot
+        print(f"pixelfit: could not start the trainer ahead of time: {exc}", file=sys.stderr)
 
 
 def run_application(path: str | None = None, argv: list[str] | None = None) -> int:

@@ -248,12 +248,16 @@ class Session:
         self._emit("progress")
 
     def add_rung(self, rung: Rung) -> None:
-        """A finished rung from the worker; the recommendation is renewed with every rung."""
+        """A finished rung from the worker; the recommendation is renewed with every rung.
+
+        Nothing is selected for the user while the ladder climbs (the first rung is the constant
+        rule, rarely worth a look, and showing it costs the window a cascade of paints as the
+        climb starts); the user may pick any finished rung, and the recommended one is selected
+        when the climb ends unless the user has chosen.
+        """
         self.rungs.append(rung)
         self.recommended = conclude(self.rungs, self.run_prep.y_test)
         self._emit("rungs")
-        if self.selected is None:
-            self.select(rung.key, by_user=False)
 
     def end_run(self, outcome: str, detail: str = "") -> None:
         """``outcome`` is 'finished', 'cancelled' or 'failed' (``detail`` says why)."""

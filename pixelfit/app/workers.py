@@ -1,25 +1,28 @@
-"""The ladder worker: a QThread that iterates :func:`pixelfit.ladder.run_ladder` and only sends data.
+"""The ladder worker: a QThread that relays :func:`pixelfit.ladder_process.run_ladder_in_process`.
 
-The worker never touches a widget or the session. Each progress record goes out as a signal,
-which Qt queues to the GUI thread; cancelling sets a plain ``threading.Event``, which the ladder polls
-between steps through its cancel callback (no Qt call is made from the worker thread). Errors come back as a message string.
+The training itself runs in a child process (see :mod:`pixelfit.ladder_process` for why): a
+training thread in this process would hold the interpreter lock most of the time, and every Python
+call the GUI thread makes (a slot, a plot item's paint method) would wait for it; measured, that
+made stalls of 50 to 770 ms while a ladder climbed (benchmarks/bench_gui_stall.py). This thread
+only waits on the child's pipe, which releases the lock, and turns each record into a signal that
+Qt queues to the GUI thread.
 
-While the worker runs Python it holds the interpreter lock, and every Python call the GUI thread
-makes meanwhile (a slot, a plot item's paint method) waits for it. No single call of the ladder
-holds it for long (at most 14 ms measured), so the window stays responsive by making few Python
-calls per update, not by a shorter ``sys.setswitchinterval``, which measured no better than the
-default here; see benchmarks/README.md (bench_gui_stall.py).
+The worker never touches a widget or the session. Cancelling sets a plain ``threading.Event``,
+which the relay forwards to the child; the ladder there polls it between steps. Errors, and a
+child that dies (a crash, the system killing it for memory), come back as a message string.
 """
 
 from __future__ import annotations
 
+import sys
 import threading
 import traceback
 
 from pixelfit.app._qt import QtCore
 from pixelfit.app.session import RunSpec
 from pixelfit.errors import PixelfitError
-from pixelfit.ladder import LadderCancelled, run_ladder
+from pixelfit.ladder import LadderCancelled
+from pixelfit.ladder_process import TrainerLost, run_ladder_in_process
 
 
 class LadderWorker(QtCore.QThread):
@@ -58,7 +61,7 @@ class LadderWorker(QtCore.QThread):
     def run(self) -> None:  # runs in the worker thread
         spec = self._spec
         try:
-            for pr in run_ladder(spec.prep, spec.plan, spec.folds, spec.seed, cancel=self._cancel.is_set):
+            for pr in run_ladder_in_process(spec.prep, spec.plan, spec.folds, spec.seed, cancel=self._cancel.is_set):
                 if pr.rung is not None:
                     self.rung_ready.emit(pr.rung)
                 self.progressed.emit(pr.done, pr.total, pr.message)
@@ -66,6 +69,9 @@ class LadderWorker(QtCore.QThread):
             self.ended.emit("cancelled", "")
         except PixelfitError as exc:
             self.ended.emit("failed", str(exc))
+        except TrainerLost as exc:
+            print(f"pixelfit: {exc}", file=sys.stderr)
+            self.ended.emit("failed", str(exc).splitlines()[0])
         except Exception as exc:  # a bug in a model must not take the window down with it
             traceback.print_exc()
             self.ended.emit("failed", f"internal error ({type(exc).__name__}: {exc})")

@@ -11,7 +11,6 @@ import math
 
 import numpy as np
 from scipy.stats import beta
-from sklearn.metrics import confusion_matrix, f1_score, matthews_corrcoef, precision_score, recall_score
 
 Z95 = 1.959963984540054  # standard normal quantile at 0.975
 
@@ -43,43 +42,50 @@ def clopper_pearson_interval(successes: int, n: int, alpha: float = 0.05) -> tup
 
 def confusion(y_true: np.ndarray, y_pred: np.ndarray) -> dict[str, int]:
     """tp, fp, fn, tn for boolean truth and prediction vectors of equal length."""
-    tn, fp, fn, tp = confusion_matrix(np.asarray(y_true, bool), np.asarray(y_pred, bool), labels=[False, True]).ravel()
+    y_true = np.asarray(y_true, bool)
+    y_pred = np.asarray(y_pred, bool)
+    if y_true.shape != y_pred.shape or y_true.ndim != 1:
+        raise ValueError(f"truth and prediction must be vectors of one length, not {y_true.shape} and {y_pred.shape}")
+    tn, fp, fn, tp = np.bincount(2 * y_true.view(np.uint8) + y_pred.view(np.uint8), minlength=4)
     return {"tp": int(tp), "fp": int(fp), "fn": int(fn), "tn": int(tn)}
 
 
-def _nan_to_none(x: float) -> float | None:
-    return None if x is None or (isinstance(x, float) and math.isnan(x)) else float(x)
+def _ratio(num: float, den: float) -> float | None:
+    return num / den if den > 0 else None
 
 
 def detection_metrics(y_true: np.ndarray, y_pred: np.ndarray) -> dict:
     """All metrics of one prediction vector, as a JSON-ready dict.
 
-    Keys: tp, fp, fn, tn, precision, recall, f1, accuracy, mcc, precision_ci, recall_ci,
+    Keys: tp, fp, fn, tn, n, precision, recall, f1, accuracy, mcc, precision_ci, recall_ci,
     accuracy_ci. Undefined values are None.
     """
-    y_true = np.asarray(y_true, bool)
-    y_pred = np.asarray(y_pred, bool)
-    c = confusion(y_true, y_pred)
-    n = len(y_true)
-    out: dict = dict(c)
-    out["n"] = n
+    return metrics_from_counts(**confusion(y_true, y_pred))
+
+
+def metrics_from_counts(tp: int, fp: int, fn: int, tn: int) -> dict:
+    """:func:`detection_metrics` from the four cells of the confusion matrix.
+
+    The ratios are their textbook definitions over the counts; ``tests/test_references.py`` holds
+    them equal to scikit-learn's ``precision_score``, ``recall_score``, ``f1_score`` and
+    ``matthews_corrcoef`` on the same vectors. Working from counts keeps this cheap enough for a
+    threshold slider (no per-call input validation of whole vectors).
+    """
+    n = tp + fp + fn + tn
+    out: dict = {"tp": tp, "fp": fp, "fn": fn, "tn": tn, "n": n}
     if n == 0:
         out.update(precision=None, recall=None, f1=None, accuracy=None, mcc=None,
                    precision_ci=None, recall_ci=None, accuracy_ci=None)
         return out
-    kw = {"zero_division": np.nan}
-    out["precision"] = _nan_to_none(precision_score(y_true, y_pred, **kw))
-    out["recall"] = _nan_to_none(recall_score(y_true, y_pred, **kw))
-    out["f1"] = _nan_to_none(f1_score(y_true, y_pred, **kw)) if c["tp"] + c["fp"] + c["fn"] > 0 else None
-    out["accuracy"] = (c["tp"] + c["tn"]) / n
-    margins = (c["tp"] + c["fp"], c["tp"] + c["fn"], c["tn"] + c["fp"], c["tn"] + c["fn"])
-    out["mcc"] = float(matthews_corrcoef(y_true, y_pred)) if min(margins) > 0 else None
-    out["precision_ci"] = wilson_interval(c["tp"], c["tp"] + c["fp"])
-    out["recall_ci"] = wilson_interval(c["tp"], c["tp"] + c["fn"])
-    out["accuracy_ci"] = wilson_interval(c["tp"] + c["tn"], n)
-    for key in ("precision_ci", "recall_ci", "accuracy_ci"):
-        if out[key] is not None:
-            out[key] = [out[key][0], out[key][1]]
+    out["precision"] = _ratio(tp, tp + fp)
+    out["recall"] = _ratio(tp, tp + fn)
+    out["f1"] = _ratio(2 * tp, 2 * tp + fp + fn)
+    out["accuracy"] = (tp + tn) / n
+    margins = (tp + fp, tp + fn, tn + fp, tn + fn)
+    out["mcc"] = (tp * tn - fp * fn) / math.sqrt(math.prod(margins)) if min(margins) > 0 else None
+    for key, (x, m) in (("precision_ci", (tp, tp + fp)), ("recall_ci", (tp, tp + fn)), ("accuracy_ci", (tp + tn, n))):
+        ci = wilson_interval(x, m)
+        out[key] = None if ci is None else [ci[0], ci[1]]
     return out
 
 

@@ -40,6 +40,8 @@ class PixelMap(pg.GraphicsLayoutWidget):
         self.plot.getAxis("left").setLabel("row")
         for side in ("bottom", "left"):
             self.plot.getAxis(side).enableAutoSIPrefix(False)
+            # drawn once per change, then blitted (see ErrorPlot in ladder_view.py)
+            self.plot.getAxis(side).setCacheMode(QtWidgets.QGraphicsItem.CacheMode.DeviceCoordinateCache)
         self.image = pg.ImageItem(axisOrder="row-major")
         self.plot.addItem(self.image)
         self.outline = pg.ScatterPlotItem(symbol="s", brush=None, pen=pg.mkPen((0, 0, 0), width=1.5), pxMode=False)

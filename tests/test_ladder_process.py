@@ -1,0 +1,94 @@
+"""The ladder in a child process: same records as in-process, cancellable, and it never outlives the call."""
+
+import multiprocessing
+import os
+import signal
+import time
+
+import numpy as np
+import pytest
+from conftest import make_patches
+
+from pixelfit.data import Binarizer, Dataset
+from pixelfit.errors import TrainingError
+from pixelfit.ladder import LadderCancelled, prepare, run_ladder
+from pixelfit.ladder_process import TrainerLost, run_ladder_in_process, slim, start_method, warm_up
+
+PLAN = [("constant", 0), ("lut", 1), ("lut", 2), ("nb", 4), ("logistic", 2), ("tree", 2)]
+
+
+@pytest.fixture
+def prep(rng):
+    imgs, labels = make_patches(rng, n=160)
+    ds = Dataset(imgs, labels, [f"#{i}" for i in range(len(labels))], "generated", "npz")
+    return prepare(ds, Binarizer("otsu"), seed=3)
+
+
+def trainers():
+    return [p for p in multiprocessing.active_children() if p.name == "pixelfit-trainer"]
+
+
+def test_same_rungs_as_in_process(prep):
+    warm_up()
+    here = [pr for pr in run_ladder(prep, PLAN, folds=3, seed=1)]
+    there = [pr for pr in run_ladder_in_process(prep, PLAN, folds=3, seed=1)]
+    assert [(p.done, p.total, p.message) for p in there] == [(p.done, p.total, p.message) for p in here]
+    a = [p.rung for p in here if p.rung]
+    b = [p.rung for p in there if p.rung]
+    assert [r.key for r in b] == [k + "-" + str(s) for k, s in PLAN]
+    for ra, rb in zip(a, b):
+        assert rb.train == ra.train and rb.test == ra.test and rb.cv == ra.cv and rb.pixels == ra.pixels
+        assert np.array_equal(rb.test_pred, ra.test_pred)
+        # the estimator came back whole: it predicts like the one trained here
+        assert np.array_equal(rb.estimator.predict(prep.X_test), ra.estimator.predict(prep.X_test))
+    assert start_method() in ("forkserver", "spawn")
+    assert trainers() == []
+
+
+def test_slim_keeps_what_training_reads(prep):
+    s = slim(prep)
+    assert s.shape == prep.shape and s.n_pixels == prep.n_pixels and len(s.dataset) == 0
+    assert s.X_train is prep.X_train and s.y_test is prep.y_test and s.positive == prep.positive
+    assert len(prep.dataset) == 160  # the original is untouched
+
+
+def test_cancel_stops_the_child_and_keeps_earlier_records(prep):
+    seen = []
+    with pytest.raises(LadderCancelled):
+        for pr in run_ladder_in_process(prep, [("lut", 1), ("lut", 2), ("lut", 3), ("lut", 4)], folds=3,
+                                        cancel=lambda: any(p.rung for p in seen)):
+            seen.append(pr)
+    assert [p.rung.key for p in seen if p.rung] == ["lut-1"]
+    assert trainers() == []
+
+
+def test_refusal_comes_back_as_the_same_error(prep):
+    with pytest.raises(TrainingError, match="must be at least 1"):
+        list(run_ladder_in_process(prep, [("constant", 0), ("logistic", 0)], folds=2))
+    assert trainers() == []
+
+
+def test_a_bug_in_the_child_is_reported_not_raised_raw(prep):
+    with pytest.raises(TrainerLost, match="KeyError"):
+        list(run_ladder_in_process(prep, [("no-such-family", 1)], folds=2))
+
+
+def test_a_killed_child_is_reported(prep):
+    gen = run_ladder_in_process(prep, [("constant", 0)] + [("lut", k) for k in (1, 2, 3, 4)] * 3, folds=5)
+    next(gen)
+    (child,) = trainers()
+    os.kill(child.pid, signal.SIGKILL)
+    with pytest.raises(TrainerLost, match="ended without finishing"):
+        for _ in gen:
+            pass
+    assert trainers() == []
+
+
+def test_leaving_early_ends_the_child(prep):
+    gen = run_ladder_in_process(prep, [("lut", k) for k in (1, 2, 3, 4)] * 3, folds=5)
+    next(gen)
+    assert len(trainers()) == 1
+    t = time.perf_counter()
+    gen.close()
+    assert trainers() == []
+    assert time.perf_counter() - t < 10
