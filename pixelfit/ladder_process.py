@@ -39,6 +39,11 @@ POLL_S = 0.05
 #: How long a cancelled trainer gets to stop on its own before it is terminated (s).
 STOP_GRACE_S = 5.0
 
+#: Said when a trainer dies before its first word, the usual cause of which is a script without a
+#: main guard: the child re-imports the calling script, as multiprocessing's spawn and forkserver do.
+MAIN_GUARD_HINT = ("if this is a script that runs pixelfit, keep its top-level code under "
+                   "`if __name__ == '__main__':`, as Python's multiprocessing requires")
+
 _context_lock = threading.Lock()
 _context: multiprocessing.context.BaseContext | None = None
 
@@ -132,9 +137,15 @@ def run_ladder_in_process(prep: Prepared, rungs: list[tuple[str, int]], folds: i
     here, there = ctx.Pipe(duplex=True)
     proc = ctx.Process(target=_serve, name="pixelfit-trainer", daemon=True,
                        args=(there, slim(prep), list(rungs), folds, seed, target_precision, target_recall))
-    proc.start()
+    try:
+        proc.start()
+    except OSError as exc:  # the new process died before it took its work
+        there.close()
+        here.close()
+        raise TrainerLost(f"could not start the training process ({exc}); {MAIN_GUARD_HINT}") from exc
     there.close()
     asked = False
+    heard = False
     try:
         while True:
             if not asked and cancel is not None and cancel():
@@ -148,9 +159,11 @@ def run_ladder_in_process(prep: Prepared, rungs: list[tuple[str, int]], folds: i
                 message = here.recv() if ready else None
             except (EOFError, OSError):
                 proc.join(STOP_GRACE_S)
-                raise TrainerLost(f"the training process ended without finishing (exit code {proc.exitcode})") from None
+                hint = "" if heard else f" before its first step; {MAIN_GUARD_HINT}"
+                raise TrainerLost(f"the training process ended without finishing (exit code {proc.exitcode}){hint}") from None
             if message is None:
                 continue
+            heard = True
             kind, payload = message
             if kind == "progress":
                 yield payload

@@ -92,3 +92,27 @@ def test_leaving_early_ends_the_child(prep):
     gen.close()
     assert trainers() == []
     assert time.perf_counter() - t < 10
+
+
+def test_unguarded_script_gets_a_clear_message(tmp_path):
+    # The child re-imports the calling script (as multiprocessing does); without a main guard the
+    # script would start a trainer again from inside the child, which Python refuses.
+    import subprocess
+    import sys
+
+    script = tmp_path / "unguarded.py"
+    script.write_text(
+        "import numpy as np\n"
+        "from pixelfit.data import Binarizer, Dataset\n"
+        "from pixelfit.ladder import prepare\n"
+        "from pixelfit.ladder_process import TrainerLost, run_ladder_in_process\n"
+        "rng = np.random.default_rng(0)\n"
+        "ds = Dataset((rng.random((40, 6, 6)) * 255).astype(np.uint8), np.array(['a', 'b'] * 20), [], 'x', 'npz')\n"
+        "try:\n"
+        "    list(run_ladder_in_process(prepare(ds, Binarizer('otsu')), [('constant', 0)], 2))\n"
+        "    print('RAN')\n"
+        "except TrainerLost as exc:\n"
+        "    print('LOST', exc)\n")
+    out = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=120)
+    last = out.stdout.strip().splitlines()[-1]
+    assert last.startswith("LOST") and "__main__" in last, out.stdout + out.stderr

@@ -8,7 +8,12 @@ from __future__ import annotations
 
 
 def launch(path: str | None = None, argv: list[str] | None = None) -> int:
-    """Open the main window (on ``path`` when given) and run the event loop; returns its exit code."""
+    """Open the main window (on ``path`` when given) and run the event loop; returns its exit code.
+
+    The window trains in a child process (:mod:`pixelfit.ladder_process`), which re-imports the
+    calling script as Python's multiprocessing does: call this from under
+    ``if __name__ == "__main__":``.
+    """
     from pixelfit.app.main_window import run_application
 
     return run_application(path, argv)

@@ -280,11 +280,12 @@ class MainWindow(QtWidgets.QMainWindow):
         w.rung_ready.connect(self.session.add_rung)
         w.ended.connect(self._climb_ended)
         self.worker = w
-        self.tabs.setCurrentIndex(0)
-        # The thread starts a moment later, once the ladder tab this brings up has been laid out
-        # and painted (a cascade of paints of the plot, table and inspector). Painted while the
-        # worker runs, each Python paint call of the plot waits for the interpreter lock, and that
-        # cascade was the longest stall of a climb (see benchmarks/bench_gui_stall.py).
+        # The ladder tab comes up on the next turn of the event loop: the run's start has cleared
+        # the old rungs (cheap while the tab is hidden), and the tab's first paint of the plot and
+        # table gets a turn of its own instead of adding to this one; together they were the
+        # longest stall of a climb (see benchmarks/bench_gui_stall.py). The trainer starts once
+        # that paint is done, so the child's start does not compete with it for a CPU.
+        QtCore.QTimer.singleShot(0, self, lambda: self.tabs.setCurrentIndex(0))
         QtCore.QTimer.singleShot(START_DELAY_MS, w, w.start_unless_cancelled)
         return True
 
