@@ -14,7 +14,10 @@ otherwise that one-off paint, not the event loop, sets the reference. Clicking c
 ladder tab up for the first time, and that first paint of the plot and table is counted in the
 climb: a user sees it too. ``--repeat N`` climbs N times in one process and prints each.
 
-    python benchmarks/bench_gui_stall.py [PATH] [--families LIST] [--max-size K] [--folds F] [--repeat N]
+``--poke MS`` also acts as a user looking around while it climbs: every MS ms it selects the newest
+finished rung in the table and moves the threshold slider (each a selection cascade of the inspector).
+
+    python benchmarks/bench_gui_stall.py [PATH] [--families LIST] [--max-size K] [--folds F] [--repeat N] [--poke MS]
 """
 
 from __future__ import annotations
@@ -90,7 +93,30 @@ def generated_set(root: Path) -> Path:
     return root
 
 
-def climb_once(w: MainWindow) -> dict:
+class User:
+    """Acts like someone looking around while the ladder climbs: every ``every_ms`` picks the newest
+    finished rung in the table and drags the threshold slider to a new place."""
+
+    def __init__(self, w: MainWindow, every_ms: int):
+        self.w = w
+        self.acts = 0
+        self.rng = np.random.default_rng(11)
+        self.timer = QtCore.QTimer()
+        self.timer.setInterval(every_ms)
+        self.timer.timeout.connect(self.act)
+
+    def act(self):
+        s = self.w.session
+        if not s.rungs:
+            return
+        self.acts += 1
+        self.w.table.selectRow(len(s.rungs) - 1)
+        slider = self.w.inspector.slider
+        if slider.isEnabled():
+            slider.setValue(int(self.rng.integers(slider.minimum(), slider.maximum() + 1)))
+
+
+def climb_once(w: MainWindow, poke_ms: int = 0) -> dict:
     """Settle, take the idle reference, climb once; the figures of that climb."""
     s = w.session
     w.tabs.setCurrentWidget(w.gallery)  # where a freshly opened set leaves the window
@@ -122,9 +148,14 @@ def climb_once(w: MainWindow) -> dict:
     cpu0 = time.thread_time()
     beat.start()
     last[0] = time.perf_counter()
+    user = User(w, poke_ms) if poke_ms > 0 else None
     w.act_climb.trigger()
+    if user is not None:
+        user.timer.start()
     run_until_stopped(s)
     busy = beat.stop()
+    if user is not None:
+        user.timer.stop()
     wall = time.perf_counter() - t0
     cpu = time.thread_time() - cpu0
     off()
@@ -134,7 +165,7 @@ def climb_once(w: MainWindow) -> dict:
     ours = sum(1 for i in long_gaps if any(a < ticks[i + 1] and b > ticks[i] for a, b in spans))
     return {"idle": idle, "busy": busy, "wall": wall, "gui_cpu": cpu, "steps": step_times,
             "handler_ms": [(b - a) * 1000 for a, b in spans], "long": len(long_gaps), "ours": ours,
-            "rungs": len(s.rungs)}
+            "rungs": len(s.rungs), "acts": 0 if user is None else user.acts}
 
 
 def main() -> int:
@@ -144,6 +175,9 @@ def main() -> int:
     ap.add_argument("--max-size", type=int, default=8)
     ap.add_argument("--folds", type=int, default=5)
     ap.add_argument("--repeat", type=int, default=1, help="climbs in this process, each printed")
+    ap.add_argument("--poke", type=int, default=0, metavar="MS",
+                    help="every MS ms while climbing, select the newest rung and move the threshold slider "
+                         "(0, the default: leave the window alone)")
     args = ap.parse_args()
 
     _app = QtWidgets.QApplication.instance() or QtWidgets.QApplication([])  # kept alive until the end
@@ -166,12 +200,12 @@ def main() -> int:
           f"switch interval {sys.getswitchinterval() * 1000:g} ms outside a climb")
     worst = 0.0
     for k in range(args.repeat):
-        r = climb_once(w)
+        r = climb_once(w, args.poke)
         idle, busy, hms = r["idle"], r["busy"], r["handler_ms"]
         worst = max(worst, busy.max())
         longest_step = max(r["steps"]) * 1000 if r["steps"] else float("nan")
         print(f"-- climb {k + 1} of {args.repeat}: {r['rungs']} rungs in {r['wall']:.1f} s; GUI thread on a CPU "
-              f"{r['gui_cpu']:.2f} s of it")
+              f"{r['gui_cpu']:.2f} s of it" + (f"; {r['acts']} selections and slider moves" if args.poke else ""))
         print(f"idle event loop:        longest stall {idle.max():7.1f} ms   p99 {np.percentile(idle, 99):6.1f} ms   "
               "(reference, same process)")
         print(f"while climbing:         longest stall {busy.max():7.1f} ms   p99 {np.percentile(busy, 99):6.1f} ms   "

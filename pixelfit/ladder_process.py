@@ -27,6 +27,7 @@ import multiprocessing.connection
 import threading
 import traceback
 from collections.abc import Iterator
+from typing import Any
 
 import numpy as np
 
@@ -45,23 +46,23 @@ MAIN_GUARD_HINT = ("if this is a script that runs pixelfit, keep its top-level c
                    "`if __name__ == '__main__':`, as Python's multiprocessing requires")
 
 _context_lock = threading.Lock()
-_context: multiprocessing.context.BaseContext | None = None
+_context: Any = None  # a SpawnContext or ForkServerContext; typeshed's BaseContext has no Process
 
 
 class TrainerLost(RuntimeError):
     """The training process failed in a way the ladder could not report (a crash, a kill, a bug)."""
 
 
-def _get_context() -> multiprocessing.context.BaseContext:
+def _get_context() -> Any:
     global _context
     with _context_lock:
         if _context is None:
             if "forkserver" in multiprocessing.get_all_start_methods():
-                ctx = multiprocessing.get_context("forkserver")
-                ctx.set_forkserver_preload([__name__])
+                server = multiprocessing.get_context("forkserver")
+                server.set_forkserver_preload([__name__])
+                _context = server
             else:
-                ctx = multiprocessing.get_context("spawn")
-            _context = ctx
+                _context = multiprocessing.get_context("spawn")
         return _context
 
 
