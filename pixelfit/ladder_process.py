@@ -25,6 +25,7 @@ import dataclasses
 import multiprocessing
 import multiprocessing.connection
 import threading
+import time
 import traceback
 from collections.abc import Iterator
 from typing import Any
@@ -129,7 +130,8 @@ def run_ladder_in_process(prep: Prepared, rungs: list[tuple[str, int]], folds: i
                           target_recall: float | None = None) -> Iterator[Progress]:
     """:func:`pixelfit.ladder.run_ladder` in a child process; yields the same :class:`Progress` records.
 
-    Raises :class:`LadderCancelled` once the child has stopped after ``cancel()`` returned True, the
+    Raises :class:`LadderCancelled` once the child has stopped after ``cancel()`` returned True (or
+    :data:`STOP_GRACE_S` later, when the child is terminated because it did not stop), the
     child's :class:`pixelfit.errors.PixelfitError` (same class and message) when it refused the data,
     and :class:`TrainerLost` when it raised anything else or ended without a word. Leaving the
     generator early (``close()``, garbage collection) stops the child; it never outlives the call.
@@ -145,16 +147,21 @@ def run_ladder_in_process(prep: Prepared, rungs: list[tuple[str, int]], folds: i
         here.close()
         raise TrainerLost(f"could not start the training process ({exc}); {MAIN_GUARD_HINT}") from exc
     there.close()
-    asked = False
+    asked_at: float | None = None
     heard = False
+    grace = STOP_GRACE_S
     try:
         while True:
-            if not asked and cancel is not None and cancel():
-                asked = True
+            if asked_at is None and cancel is not None and cancel():
+                asked_at = time.monotonic()
                 try:
                     here.send("cancel")
                 except OSError:  # the child has already gone; its last words are still in the pipe
                     pass
+            elif asked_at is not None and time.monotonic() - asked_at > STOP_GRACE_S:
+                # A step that does not look at its cancel flag for this long: stop waiting for it.
+                grace = 0.0
+                raise LadderCancelled()
             try:
                 ready = here.poll(POLL_S)
                 message = here.recv() if ready else None
@@ -177,17 +184,17 @@ def run_ladder_in_process(prep: Prepared, rungs: list[tuple[str, int]], folds: i
             else:
                 raise TrainerLost(f"the training process failed: {payload}")
     finally:
-        _stop(proc, here)
+        _stop(proc, here, grace)
 
 
-def _stop(proc, conn) -> None:
-    """Make sure the child has ended: ask it, give it a moment, then terminate it."""
+def _stop(proc, conn, grace: float) -> None:
+    """Make sure the child has ended: ask it, give it ``grace`` seconds, then terminate it."""
     if proc.is_alive():
         try:
             conn.send("cancel")
         except OSError:
             pass
-        proc.join(STOP_GRACE_S)
+        proc.join(grace)
     if proc.is_alive():
         proc.terminate()
         proc.join(STOP_GRACE_S)

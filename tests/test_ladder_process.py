@@ -116,3 +116,15 @@ def test_unguarded_script_gets_a_clear_message(tmp_path):
     out = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=120)
     last = out.stdout.strip().splitlines()[-1]
     assert last.startswith("LOST") and "__main__" in last, out.stdout + out.stderr
+
+
+def test_a_child_that_does_not_stop_in_time_is_terminated(prep, monkeypatch):
+    import pixelfit.ladder_process as lp
+
+    monkeypatch.setattr(lp, "STOP_GRACE_S", 0.0)  # read by the caller's side, which does the waiting
+    seen = []
+    with pytest.raises(LadderCancelled):
+        for pr in run_ladder_in_process(prep, [("lut", k) for k in (1, 2, 3, 4)] * 3, folds=5,
+                                        cancel=lambda: bool(seen)):
+            seen.append(pr)
+    assert trainers() == []
