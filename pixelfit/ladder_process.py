@@ -100,20 +100,28 @@ def _serve(conn: multiprocessing.connection.Connection, prep: Prepared, rungs: l
 
     def cancel() -> bool:
         if not asked[0] and conn.poll():
-            asked[0] = conn.recv() == "cancel"
+            try:
+                asked[0] = conn.recv() == "cancel"
+            except (EOFError, OSError):  # the caller has gone (killed, crashed): nobody waits for the rest
+                asked[0] = True
         return asked[0]
 
     try:
-        for pr in run_ladder(prep, rungs, folds, seed, cancel, target_precision, target_recall):
-            conn.send(("progress", pr))
-    except LadderCancelled:
-        conn.send(("cancelled", None))
-    except errors.PixelfitError as exc:
-        conn.send(("refused", (type(exc).__name__, str(exc))))
-    except BaseException as exc:  # noqa: BLE001 - reported to the caller, which decides
-        conn.send(("crashed", f"{type(exc).__name__}: {exc}\n{traceback.format_exc()}"))
-    else:
-        conn.send(("finished", None))
+        try:
+            for pr in run_ladder(prep, rungs, folds, seed, cancel, target_precision, target_recall):
+                conn.send(("progress", pr))
+        except LadderCancelled:
+            conn.send(("cancelled", None))
+        except errors.PixelfitError as exc:
+            conn.send(("refused", (type(exc).__name__, str(exc))))
+        except (BrokenPipeError, EOFError):
+            pass  # the caller has gone
+        except BaseException as exc:  # noqa: BLE001 - reported to the caller, which decides
+            conn.send(("crashed", f"{type(exc).__name__}: {exc}\n{traceback.format_exc()}"))
+        else:
+            conn.send(("finished", None))
+    except OSError:
+        pass  # the last word could not be delivered: the caller has gone
     finally:
         conn.close()
 

@@ -128,3 +128,40 @@ def test_a_child_that_does_not_stop_in_time_is_terminated(prep, monkeypatch):
                                         cancel=lambda: bool(seen)):
             seen.append(pr)
     assert trainers() == []
+
+
+@pytest.mark.skipif(not os.path.isdir("/proc/self"), reason="reads the child's state from /proc")
+def test_the_child_stops_when_its_caller_dies(tmp_path):
+    # A caller killed mid-climb leaves no trainer running on: the child notices the closed pipe at
+    # its next step.
+    import subprocess
+    import sys
+
+    script = tmp_path / "caller.py"
+    script.write_text(
+        "import os, sys, numpy as np\n"
+        "from pixelfit.data import Binarizer, Dataset\n"
+        "from pixelfit.ladder import prepare\n"
+        "from pixelfit.ladder_process import run_ladder_in_process\n"
+        "import multiprocessing\n"
+        "if __name__ == '__main__':\n"
+        "    rng = np.random.default_rng(0)\n"
+        "    ds = Dataset((rng.random((400, 8, 8)) * 255).astype(np.uint8), np.array(['a', 'b'] * 200), [], 'x', 'npz')\n"
+        "    gen = run_ladder_in_process(prepare(ds, Binarizer('otsu')), [('lut', k) for k in (1, 2, 3, 4)] * 20, 5)\n"
+        "    next(gen)\n"
+        "    print(multiprocessing.active_children()[0].pid, flush=True)\n"
+        "    os._exit(0)\n")  # no cleanup at all, as if killed
+    out = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=120)
+    pid = int(out.stdout.split()[-1])
+    deadline = time.monotonic() + 30
+    while time.monotonic() < deadline:
+        try:
+            with open(f"/proc/{pid}/stat") as f:
+                if f.read().rsplit(")", 1)[1].split()[0] == "Z":
+                    break  # ended; only its exit status waits for a reaper
+        except FileNotFoundError:
+            break
+        time.sleep(0.1)
+    else:
+        os.kill(pid, signal.SIGKILL)
+        pytest.fail("the trainer outlived its caller by 30 s")
