@@ -23,8 +23,8 @@ APP_NAME = "pixelfit"
 DEMO_SET = "bottle-caps"
 RECENT_KEY = "sources/recent"
 MAX_RECENT = 8
-#: Wait between bringing up the ladder tab and starting a climb's thread (measured: the tab's
-#: first paints take 50-100 ms on the team's 2-core machine).
+#: Wait between pressing climb and starting its trainer, so the ladder tab's first paints (up to
+#: about 60 ms here) do not share the CPUs with the child's start.
 START_DELAY_MS = 150
 Key = QtGui.QKeySequence
 
