@@ -20,8 +20,7 @@ import numpy as np
 
 sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
-from pixelfit.data import Binarizer
-from pixelfit.data._import import Dataset
+from pixelfit.data import Binarizer, Dataset
 from pixelfit.ladder import prepare, run_ladder
 from pixelfit.models import FAMILY_ORDER, plan_rungs
 

@@ -33,8 +33,8 @@ import numpy as np
 
 sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
-from pixelfit.models import LutRule, _lut_engine
-from pixelfit.models._lut_engine import CountIndex, exhaustive_best, pack_columns
+from pixelfit.models import LutRule, lut_engine
+from pixelfit.models.lut_engine import CountIndex, exhaustive_best, pack_columns
 
 
 def make_patches(n: int, side: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
@@ -154,13 +154,13 @@ def part4(X, y, args):
     Xr, yr = X[rows], y[rows]
     t_w, got_w = best_of(lambda: engine_search(Xr, yr, 4, args.n_jobs), args.repeat)
     words = CountIndex(Xr, yr).n_words
-    collapse = _lut_engine._weight_planes
-    _lut_engine._weight_planes = lambda Xc: [(Xc, 1)]
+    collapse = lut_engine._weight_planes
+    lut_engine._weight_planes = lambda Xc: [(Xc, 1)]
     try:
         t_p, got_p = best_of(lambda: engine_search(Xr, yr, 4, args.n_jobs), args.repeat)
         plain = CountIndex(Xr, yr).n_words
     finally:
-        _lut_engine._weight_planes = collapse
+        lut_engine._weight_planes = collapse
     print(f"   {words} words instead of {plain}: collapsed {t_w:.3f} s, plain {t_p:.3f} s, "
           f"ratio {t_p / t_w:.1f}x, optimum {'identical' if got_w == got_p else 'DIFFERENT'}")
 

@@ -12,8 +12,9 @@ import sys
 from pathlib import Path
 
 from pixelfit import __version__
-from pixelfit.data import Binarizer, Dataset, choose_positive, load_dataset
+from pixelfit.data import Binarizer, Dataset, choose_positive, load_dataset, resolve_dataset_path
 from pixelfit.errors import PixelfitError
+from pixelfit.text import ladder_table, metrics_line, pixel_grid
 
 EXIT_OK, EXIT_INCOMPLETE, EXIT_BAD_INPUT = 0, 1, 2
 
@@ -21,30 +22,6 @@ EXIT_OK, EXIT_INCOMPLETE, EXIT_BAD_INPUT = 0, 1, 2
 class _Parser(argparse.ArgumentParser):
     def error(self, message: str):  # one line on stderr, exit 2
         self.exit(EXIT_BAD_INPUT, f"pixelfit: {message} (see --help)\n")
-
-
-def _fmt(v, digits: int = 3) -> str:
-    if v is None:
-        return "-"
-    if isinstance(v, float):
-        return f"{v:.{digits}f}"
-    return str(v)
-
-
-def _ci(ci) -> str:
-    return "" if not ci else f" [{ci[0]:.2f},{ci[1]:.2f}]"
-
-
-def resolve_dataset_path(path: str) -> Path:
-    """The path as given, or a bundled demo set by name (``bottle-caps``) when no such path exists."""
-    p = Path(path)
-    if p.exists():
-        return p
-    here = Path(__file__).resolve().parent
-    for base in (Path.cwd() / "demo_sets", here.parent / "demo_sets", here / "demo_sets"):
-        if (base / path).is_dir():
-            return base / path
-    return p
 
 
 def scan_report(ds: Dataset) -> dict:
@@ -102,35 +79,10 @@ class _ProgressBar:
             self.stream.flush()
 
 
-def ladder_table(summary: dict) -> str:
-    head = (f"{'rung':<14} {'log2|H|':>8} {'params':>7} {'train F1':>8} {'CV F1':>13} "
-            f"{'held-out P [95% CI]':>21} {'held-out R [95% CI]':>21} {'F1':>6} {'bound':>6}")
-    lines = [head, "-" * len(head)]
-    for r in summary["rungs"]:
-        key = f"{r['family']}-{r['size']}"
-        cv = "-" if not r["cv"] else f"{r['cv']['f1_mean']:.3f}±{r['cv']['f1_std']:.3f}"
-        t = r["test"]
-        p = f"{_fmt(t['precision'])}{_ci(t['precision_ci'])}"
-        rc = f"{_fmt(t['recall'])}{_ci(t['recall_ci'])}"
-        log2h = r["log2_class_size"]
-        log2h_s = "-" if log2h is None else (f"{log2h:.1f}" if log2h < 1e6 else f"{log2h:.2g}")
-        bound = "-" if r["bound"] is None else f"{r['bound']['error_upper']:.3f}"
-        mark = "  <- recommended" if r["recommended"] else ""
-        sig = ""
-        vs = r.get("versus_smaller")
-        if vs and vs["significant"]:
-            sig = " *"
-        lines.append(f"{key:<14} {log2h_s:>8} {r['parameters']:>7} {_fmt(r['train']['f1']):>8} {cv:>13} "
-                     f"{p:>21} {rc:>21} {_fmt(t['f1']):>6} {bound:>6}{sig}{mark}")
-    lines.append("* significantly better than the next smaller rung of its family on held-out patches "
-                 "(McNemar, p < 0.05)")
-    return "\n".join(lines)
-
-
 def cmd_fit(args) -> int:
     from pixelfit.ladder import LadderCancelled, conclude, prepare, run_ladder
     from pixelfit.models import parse_families, parse_size_overrides, plan_rungs
-    from pixelfit.report import write_fit_outputs
+    from pixelfit.outputs import write_fit_outputs
 
     ds = load_dataset(resolve_dataset_path(args.path))
     binarizer = Binarizer.parse(args.binarize, invert=args.invert)
@@ -189,32 +141,6 @@ def _write_rules(out, prep, rungs) -> None:
         save_rung(Path(out) / r.rule_file, prep, r)
 
 
-def pixel_grid(shape: tuple[int, int], used: list[int] | None, signs: dict[int, str] | None = None) -> str:
-    """The patch as ASCII: '#' (or the sign) for a pixel the rule reads, '.' for one it ignores."""
-    h, w = shape
-    rows = []
-    for r in range(h):
-        cells = []
-        for c in range(w):
-            i = r * w + c
-            if used is None:
-                cells.append("#")
-            elif i in used:
-                cells.append((signs or {}).get(i, "#"))
-            else:
-                cells.append(".")
-        rows.append("  " + " ".join(cells))
-    return "\n".join(rows)
-
-
-def _metrics_line(name: str, m: dict | None) -> str:
-    if not m:
-        return f"  {name:<9} -"
-    return (f"  {name:<9} precision {_fmt(m['precision'])}{_ci(m['precision_ci'])}  recall {_fmt(m['recall'])}"
-            f"{_ci(m['recall_ci'])}  F1 {_fmt(m['f1'])}  MCC {_fmt(m['mcc'])}  (n={m.get('n')}, tp {m['tp']}, "
-            f"fp {m['fp']}, fn {m['fn']}, tn {m['tn']})")
-
-
 def cmd_show(args) -> int:
     import numpy as np
 
@@ -241,10 +167,10 @@ def cmd_show(args) -> int:
         ones = [i for i, v in enumerate(d["model"]["table"]) if v]
         print(f"  positive for pattern codes: {', '.join(map(str, ones)) or 'none'}")
     print("metrics:")
-    print(_metrics_line("train", ev.get("train")))
+    print(metrics_line("train", ev.get("train")))
     cv = ev.get("cv")
     print(f"  {'CV':<9} " + ("-" if not cv else f"F1 {cv['f1_mean']:.3f} ± {cv['f1_std']:.3f} over {cv['folds']} folds"))
-    print(_metrics_line("held-out", ev.get("test")))
+    print(metrics_line("held-out", ev.get("test")))
     log2h = ev.get("log2_class_size")
     size = [f"parameters {ev.get('parameters')}"]
     if log2h is not None:
@@ -303,7 +229,7 @@ def cmd_apply(args) -> int:
         if rule.positive not in known:
             print(f"no patch is labeled {rule.positive!r}; recall is undefined", file=info)
         m = detection_metrics(labels == rule.positive, pred)
-        print(_metrics_line("labels", m).strip(), file=info)
+        print(metrics_line("labels", m).strip(), file=info)
     if args.csv:
         print(f"wrote {args.csv}", file=info)
     return EXIT_OK
@@ -326,7 +252,8 @@ def _subset_from_split(split_path: str, subset: str, names: list[str]):
 
 
 def cmd_export(args) -> int:
-    from pixelfit.rulefile import export_c, load_rule
+    from pixelfit.firmware import export_c
+    from pixelfit.rulefile import load_rule
 
     rule = load_rule(args.rule)
     vectors = None

@@ -21,14 +21,22 @@ from threadpoolctl import threadpool_limits
 
 from pixelfit.data import Binarizer, Dataset, binary_target, choose_positive, fingerprint, stratified_split
 from pixelfit.errors import TrainingError
-from pixelfit.evaluate._compare import mcnemar, one_standard_error_choice, operating_points, threshold_for_target
-from pixelfit.evaluate._importance import mean_difference_map, mutual_information_map, permutation_map
-from pixelfit.evaluate._metrics import detection_metrics, error_rate
+from pixelfit.evaluate import (
+    detection_metrics,
+    error_rate,
+    generalization_bound,
+    mcnemar,
+    mean_difference_map,
+    mutual_information_map,
+    one_standard_error_choice,
+    operating_points,
+    permutation_map,
+    threshold_for_target,
+)
 from pixelfit.models import (
     FAMILIES,
     LutRule,
     SearchCancelled,
-    generalization_bound,
     native_importance,
     pixels_used,
     size_figures,

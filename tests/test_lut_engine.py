@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 
 from pixelfit.models import LutRule, SearchCancelled
-from pixelfit.models import _lut_engine as engine
-from pixelfit.models._lut_engine import CountIndex, beam_best, colex_subsets, exhaustive_best
+from pixelfit.models import lut_engine as engine
+from pixelfit.models.lut_engine import CountIndex, beam_best, colex_subsets, exhaustive_best
 
 
 def brute_errors(X, y, k):

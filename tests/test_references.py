@@ -34,11 +34,12 @@ from pixelfit.evaluate import (
     hoeffding_bound,
     log2_lut_class,
     log2_memorize_class,
+    mcnemar,
+    mcnemar_from_counts,
     vc_bound,
     vc_confidence,
     wilson_interval,
 )
-from pixelfit.evaluate._compare import mcnemar, mcnemar_from_counts
 from pixelfit.models import LutRule, MemorizeRule
 
 # Images that ship inside the scikit-image wheel (no download needed), greyscale and colour.

@@ -19,12 +19,11 @@ from hypothesis import strategies as st
 from hypothesis.extra import numpy as hnp
 from PIL import Image
 
-from pixelfit.data import Binarizer, Dataset, load_dataset, read_patch
-from pixelfit.data._import import MAX_SIDE
+from pixelfit.data import MAX_SIDE, Binarizer, Dataset, load_dataset, read_patch
 from pixelfit.errors import DatasetError, RuleFileError
+from pixelfit.firmware import default_vectors, header_text, vectors_text
 from pixelfit.ladder import prepare, train_rung
 from pixelfit.rulefile import parse_rule, rule_document
-from pixelfit.rulefile._export_c import default_vectors, header_text, vectors_text
 
 settings.register_profile("pixelfit-fuzz", max_examples=1000, deadline=None, derandomize=True, database=None,
                           suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])

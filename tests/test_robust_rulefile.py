@@ -14,9 +14,9 @@ from pixelfit import _atomic
 from pixelfit.cli import main
 from pixelfit.data import Binarizer, Dataset
 from pixelfit.errors import RuleFileError
+from pixelfit.firmware import header_text
 from pixelfit.ladder import prepare, train_rung
 from pixelfit.rulefile import MAX_RULE_BYTES, load_rule, parse_rule, rule_document, save_rung
-from pixelfit.rulefile._export_c import header_text
 
 
 @pytest.fixture(scope="module")

@@ -10,8 +10,9 @@ import pytest
 from pixelfit.cli import main
 from pixelfit.data import Binarizer, Dataset
 from pixelfit.errors import RuleFileError
+from pixelfit.firmware import export_c
 from pixelfit.ladder import prepare, train_rung
-from pixelfit.rulefile import export_c, load_rule, parse_rule, rule_document, save_rung
+from pixelfit.rulefile import load_rule, parse_rule, rule_document, save_rung
 
 FAMILY_SIZES = [("constant", 0), ("lut", 3), ("nb", 4), ("logistic", 6), ("tree", 4), ("mlp", 4), ("memorize", 36)]
 

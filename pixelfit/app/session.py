@@ -33,12 +33,12 @@ import numpy as np
 
 from pixelfit.data import Binarizer, Dataset, grey_histogram, load_dataset
 from pixelfit.errors import PixelfitError
-from pixelfit.evaluate._compare import threshold_for_target
-from pixelfit.evaluate._metrics import detection_metrics
+from pixelfit.evaluate import detection_metrics, threshold_for_target
+from pixelfit.firmware import export_c
 from pixelfit.ladder import Prepared, Rung, conclude, prepare
 from pixelfit.models import FAMILIES, FAMILY_ORDER, plan_rungs
-from pixelfit.report import error_curves
-from pixelfit.rulefile import export_c, load_rule, save_rung
+from pixelfit.outputs import error_curves
+from pixelfit.rulefile import load_rule, save_rung
 
 EVENTS = ("dataset", "prep", "gallery", "settings", "run", "progress", "rungs", "selection", "threshold",
           "map", "target", "message")

@@ -5,7 +5,6 @@ from __future__ import annotations
 import hashlib
 
 import numpy as np
-from sklearn.model_selection import train_test_split
 
 from pixelfit.errors import TrainingError
 
@@ -27,6 +26,8 @@ def stratified_split(y: np.ndarray, test_fraction: float = 0.25, seed: int = 0,
             f"class {(class_names or {}).get(small, small)!r} has {counts.min()} patch(es); "
             "a stratified split needs at least 2 per class"
         )
+    from sklearn.model_selection import train_test_split  # here, so rule files load without scikit-learn
+
     idx = np.arange(len(y))
     try:
         _, test_idx = train_test_split(idx, test_size=test_fraction, random_state=seed, stratify=y)

@@ -8,39 +8,9 @@ from __future__ import annotations
 
 import math
 
+from pixelfit.models import log2_comb
+
 LN2 = math.log(2.0)
-
-
-def log2_comb(n: int, k: int) -> float:
-    """log2 of the binomial coefficient C(n, k)."""
-    if k < 0 or k > n:
-        return float("-inf")
-    return (math.lgamma(n + 1) - math.lgamma(k + 1) - math.lgamma(n - k + 1)) / LN2
-
-
-def log2_lut_class(n_pixels: int, k: int) -> float:
-    """log2 of the number of k-pixel truth-table rules: C(p, k) * 2^(2^k)."""
-    return log2_comb(n_pixels, k) + float(2**k)
-
-
-def log2_memorize_class(n_pixels: int) -> float:
-    """log2 of the number of Boolean functions of the whole patch: 2^(2^p), i.e. 2^p."""
-    return float(2.0**n_pixels)
-
-
-def log2_tree_class(n_pixels: int, depth: int) -> float:
-    """log2 of the number of decision trees of depth <= ``depth`` over ``n_pixels`` binary pixels.
-
-    A tree is a labelled leaf (2 choices) or a split on one of p pixels with two subtrees of depth
-    at most d - 1: T(0) = 2, T(d) = 2 + p * T(d - 1)^2. Counting syntactic trees over-counts the
-    functions they compute, which only loosens (never invalidates) the bound.
-    """
-    log_t = 1.0  # log2 T(0)
-    for _ in range(depth):
-        # log2(2 + p * 2^(2 log_t)) computed without overflow
-        a = math.log2(n_pixels) + 2 * log_t
-        log_t = a + math.log2(1 + 2.0 ** (1 - a)) if a < 1000 else a
-    return log_t
 
 
 def hoeffding_bound(train_error: float, log2_class_size: float, m: int, delta: float = 0.05) -> float:
@@ -80,3 +50,16 @@ def vc_bound(train_error: float, h: int, m: int, delta: float = 0.05, log2_union
     been chosen from the data: one class per choice of pixels.
     """
     return min(1.0, train_error + vc_confidence(h, m, delta, log2_union))
+
+
+def generalization_bound(family: str, figures: dict, train_error: float, m: int, n_pixels: int,
+                         delta: float = 0.05) -> dict | None:
+    """The bound that applies to the family, as {'error_upper', 'method', 'delta'}; None if none."""
+    if figures["log2_class_size"] is not None:
+        return {"error_upper": hoeffding_bound(train_error, figures["log2_class_size"], m, delta),
+                "method": "hoeffding-union (finite class, one-sided, ln(1/delta))", "delta": delta}
+    if figures["vc_dim"] is not None:
+        k = figures["vc_dim"] - 1
+        return {"error_upper": vc_bound(train_error, figures["vc_dim"], m, delta, log2_comb(n_pixels, k)),
+                "method": "vapnik-vc (h = k + 1, union over the C(p, k) pixel choices, ln(4/delta))", "delta": delta}
+    return None

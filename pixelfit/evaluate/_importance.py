@@ -6,7 +6,7 @@ import numpy as np
 from sklearn.base import BaseEstimator, ClassifierMixin
 from sklearn.inspection import permutation_importance
 
-from pixelfit.models._families import pixel_mutual_information
+from pixelfit.models import pixel_mutual_information
 
 
 class _OnPixels(ClassifierMixin, BaseEstimator):

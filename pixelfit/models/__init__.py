@@ -5,19 +5,21 @@ from pixelfit.models._families import (
     FAMILY_ORDER,
     Family,
     SparseLogistic,
-    generalization_bound,
     native_importance,
     parse_families,
     parse_size_overrides,
+    pixel_mutual_information,
     pixels_used,
     plan_rungs,
     size_figures,
 )
-from pixelfit.models._lut_engine import SearchCancelled
 from pixelfit.models._rules import ConstantRule, LutRule, MemorizeRule
+from pixelfit.models._sizes import log2_comb, log2_lut_class, log2_memorize_class, log2_tree_class
+from pixelfit.models.lut_engine import SearchCancelled
 
 __all__ = [
-    "FAMILIES", "FAMILY_ORDER", "Family", "SparseLogistic", "generalization_bound",
-    "native_importance", "parse_families", "parse_size_overrides", "pixels_used", "plan_rungs",
-    "size_figures", "SearchCancelled", "ConstantRule", "LutRule", "MemorizeRule",
+    "FAMILIES", "FAMILY_ORDER", "Family", "SparseLogistic", "native_importance", "parse_families",
+    "parse_size_overrides", "pixel_mutual_information", "pixels_used", "plan_rungs", "size_figures",
+    "SearchCancelled", "ConstantRule", "LutRule", "MemorizeRule", "log2_comb", "log2_lut_class",
+    "log2_memorize_class", "log2_tree_class",
 ]

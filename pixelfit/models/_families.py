@@ -29,15 +29,8 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 
 from pixelfit._numeric import linear_decision, sigmoid
 from pixelfit.errors import TrainingError
-from pixelfit.evaluate._bounds import (
-    hoeffding_bound,
-    log2_comb,
-    log2_lut_class,
-    log2_memorize_class,
-    log2_tree_class,
-    vc_bound,
-)
 from pixelfit.models._rules import ConstantRule, LutRule, MemorizeRule
+from pixelfit.models._sizes import log2_lut_class, log2_memorize_class, log2_tree_class
 
 FAMILY_ORDER = ("constant", "lut", "nb", "logistic", "tree", "mlp", "memorize")
 
@@ -318,19 +311,6 @@ def size_figures(family: str, est, size: int, n_pixels: int) -> dict:
     else:
         raise TrainingError(f"unknown family {family}")
     return {"parameters": params, "log2_class_size": log2_h, "vc_dim": vc}
-
-
-def generalization_bound(family: str, figures: dict, train_error: float, m: int, n_pixels: int,
-                         delta: float = 0.05) -> dict | None:
-    """The bound that applies to the family, as {'error_upper', 'method', 'delta'}; None if none."""
-    if figures["log2_class_size"] is not None:
-        return {"error_upper": hoeffding_bound(train_error, figures["log2_class_size"], m, delta),
-                "method": "hoeffding-union (finite class, one-sided, ln(1/delta))", "delta": delta}
-    if figures["vc_dim"] is not None:
-        k = figures["vc_dim"] - 1
-        return {"error_upper": vc_bound(train_error, figures["vc_dim"], m, delta, log2_comb(n_pixels, k)),
-                "method": "vapnik-vc (h = k + 1, union over the C(p, k) pixel choices, ln(4/delta))", "delta": delta}
-    return None
 
 
 def native_importance(family: str, est, X: np.ndarray, y: np.ndarray, shape: tuple[int, int]) -> np.ndarray | None:

@@ -12,7 +12,7 @@ from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from pixelfit.errors import TrainingError
-from pixelfit.models._lut_engine import (
+from pixelfit.models.lut_engine import (
     CancelFn,
     CountIndex,
     ProgressFn,

@@ -1,6 +1,8 @@
-"""Rule files: versioned JSON with a shipped JSON Schema, numpy-only prediction, C export."""
+"""Rule files: versioned JSON with a shipped JSON Schema, numpy-only prediction.
 
-from pixelfit.rulefile._export_c import export_c
+The C export of a rule lives in :mod:`pixelfit.firmware`.
+"""
+
 from pixelfit.rulefile._rule import (
     CAUTION,
     MAX_RULE_BYTES,
@@ -14,5 +16,5 @@ from pixelfit.rulefile._rule import (
     schema,
 )
 
-__all__ = ["CAUTION", "MAX_RULE_BYTES", "RULE_FORMAT", "RULE_VERSION", "Rule", "export_c", "load_rule",
+__all__ = ["CAUTION", "MAX_RULE_BYTES", "RULE_FORMAT", "RULE_VERSION", "Rule", "load_rule",
            "parse_rule", "rule_document", "save_rung", "schema"]

@@ -21,6 +21,7 @@ import numpy as np
 from pixelfit import __version__
 from pixelfit._atomic import write_json
 from pixelfit._numeric import linear_decision, sigmoid
+from pixelfit.conventions import BOUND_CONVENTION, UNDEFINED_CONVENTION
 from pixelfit.data import Binarizer
 from pixelfit.errors import RuleFileError
 
@@ -119,8 +120,6 @@ def rule_document(prep, rung) -> dict:
     prep : pixelfit.ladder.Prepared
     rung : pixelfit.ladder.Rung
     """
-    from pixelfit.report import BOUND_CONVENTION, UNDEFINED_CONVENTION
-
     return {
         "format": RULE_FORMAT,
         "schema_version": RULE_VERSION,

@@ -12,6 +12,7 @@ import numpy as np
 
 from pixelfit import __version__
 from pixelfit._atomic import write_bytes, write_json, write_text
+from pixelfit.conventions import BOUND_CONVENTION, UNDEFINED_CONVENTION
 from pixelfit.data import raw_fingerprint
 from pixelfit.ladder import Prepared, Rung
 from pixelfit.models import FAMILIES
@@ -19,9 +20,6 @@ from pixelfit.plots import heatmap_png, ladder_png
 
 SUMMARY_FORMAT = "pixelfit-ladder-summary"
 SUMMARY_VERSION = 1
-BOUND_CONVENTION = ("one-sided upper bound on the true error rate at 95 % confidence (delta = 0.05), "
-                    "with ln(1/delta) for the finite-class bound and ln(4/delta) inside Vapnik's bound")
-UNDEFINED_CONVENTION = "ratios with a zero denominator (e.g. precision with no predicted positive) are null"
 
 
 def dataset_summary(prep: Prepared) -> dict:

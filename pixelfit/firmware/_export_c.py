@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from pixelfit._atomic import write_text
-from pixelfit.rulefile._rule import CAUTION, Rule
+from pixelfit.rulefile import CAUTION, Rule
 
 
 def c_identifier(stem: str) -> str:

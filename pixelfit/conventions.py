@@ -1,0 +1,5 @@
+"""Conventions stated in every summary and rule file, in one place (no dependencies)."""
+
+BOUND_CONVENTION = ("one-sided upper bound on the true error rate at 95 % confidence (delta = 0.05), "
+                    "with ln(1/delta) for the finite-class bound and ln(4/delta) inside Vapnik's bound")
+UNDEFINED_CONVENTION = "ratios with a zero denominator (e.g. precision with no predicted positive) are null"
