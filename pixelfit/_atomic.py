@@ -1,24 +1,51 @@
 """Atomic file writes: a temporary file in the same folder, flushed, then renamed over the target.
 
-A failure at any point leaves an existing target untouched and no temporary file behind.
+A failure at any point leaves an existing target untouched and no temporary file behind. The
+file gets the permissions a plain ``open()`` would give it: those of the file it replaces, or
+0666 less the user's umask for a new one (a temporary file alone would be 0600, unreadable to a
+colleague or a build server).
 """
 
 from __future__ import annotations
 
 import json
 import os
+import stat
 import tempfile
 from pathlib import Path
+
+
+def current_umask() -> int:
+    """The process's umask, read without changing it where the system allows."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError):
+        pass
+    mask = os.umask(0o022)  # elsewhere: set and restore at once
+    os.umask(mask)
+    return mask
+
+
+def _mode_for(path: Path) -> int:
+    try:
+        return stat.S_IMODE(path.stat().st_mode)
+    except OSError:
+        return 0o666 & ~current_umask()
 
 
 def write_bytes(path: str | os.PathLike, data: bytes) -> Path:
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
+    mode = _mode_for(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()
+            os.fchmod(fh.fileno(), mode)
             os.fsync(fh.fileno())
         os.replace(tmp, path)
     except BaseException:

@@ -176,3 +176,33 @@ def test_package_source_has_no_unsafe_use():
     assert len(files) > 10  # the scan sees the package, not an empty folder
     found = [hit for f in files for hit in unsafe_uses(f.read_text(encoding="utf-8"), str(f.relative_to(PACKAGE)))]
     assert found == []
+
+
+# ---- permissions --------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("umask, expected", [(0o022, 0o644), (0o077, 0o600), (0o002, 0o664)])
+def test_written_files_honour_the_umask(tmp_path, npz_file, umask, expected):
+    # A plain open() creates files with 0666 less the umask; an atomic write must do the same, or a
+    # colleague or a build server cannot read a rule file (a bare temporary file is 0600).
+    old = os.umask(umask)
+    try:
+        out = tmp_path / "run"
+        assert main(["fit", str(npz_file), "--out", str(out), "--families", "constant,lut", "--max-size", "1",
+                     "--folds", "0"]) == 0
+        assert main(["export", str(out / "rules" / "lut-1.json"), "--c", str(tmp_path / "fw" / "rule.h")]) == 0
+    finally:
+        os.umask(old)
+    written = [p for p in list(out.rglob("*")) + list((tmp_path / "fw").iterdir()) if p.is_file()]
+    assert len(written) > 6
+    modes = {p.name: oct(p.stat().st_mode & 0o777) for p in written}
+    assert set(modes.values()) == {oct(expected)}, modes
+
+
+def test_rewriting_a_file_keeps_its_permissions(tmp_path):
+    target = tmp_path / "rule.json"
+    _atomic.write_json(target, {"version": 1})
+    os.chmod(target, 0o640)
+    _atomic.write_json(target, {"version": 2})
+    assert target.stat().st_mode & 0o777 == 0o640
+    assert json.loads(target.read_text())["version"] == 2
