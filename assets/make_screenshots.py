@@ -17,7 +17,7 @@ sys.path.insert(0, str(HERE.parent))
 
 from pixelfit.app._qt import QtCore, QtWidgets  # noqa: E402
 from pixelfit.app.main_window import MainWindow  # noqa: E402
-from pixelfit.data import resolve_dataset_path  # noqa: E402
+from pixelfit.demo import resolve_dataset_path  # noqa: E402
 
 
 def main() -> int:

@@ -36,7 +36,7 @@ import numpy as np  # noqa: E402
 
 from pixelfit.app._qt import QtCore, QtWidgets  # noqa: E402
 from pixelfit.app.main_window import MainWindow  # noqa: E402
-from pixelfit.data import resolve_dataset_path  # noqa: E402
+from pixelfit.demo import resolve_dataset_path  # noqa: E402
 
 GOAL_MS = 100.0
 TICK_MS = 5

@@ -12,11 +12,17 @@ import sys
 from pathlib import Path
 
 from pixelfit import __version__
-from pixelfit.data import Binarizer, Dataset, choose_positive, load_dataset, resolve_dataset_path
+from pixelfit.data import Binarizer, Dataset, choose_positive, load_dataset
+from pixelfit.demo import resolve_dataset_path as _resolve
 from pixelfit.errors import PixelfitError
 from pixelfit.text import ladder_table, metrics_line, pixel_grid
 
 EXIT_OK, EXIT_INCOMPLETE, EXIT_BAD_INPUT = 0, 1, 2
+
+
+def resolve_dataset_path(path: str):
+    """A folder, file or demo-set name; a demo set generated on first use is noted on stderr."""
+    return _resolve(path, note=lambda text: print(f"pixelfit: {text}", file=sys.stderr))
 
 
 class _Parser(argparse.ArgumentParser):
@@ -360,6 +366,11 @@ def cmd_gui(args) -> int:
     missing = [m for m in ("PySide6", "pyqtgraph") if importlib.util.find_spec(m) is None]
     if missing:
         raise PixelfitError(f"the desktop application needs {' and '.join(missing)}; install pixelfit with its dependencies")
+    from pixelfit.app._screen import environment_problem, probe_problem
+
+    problem = environment_problem() or probe_problem()
+    if problem:
+        raise PixelfitError(problem)
     from pixelfit.app import launch  # Qt is imported only from here on
 
     return launch(args.path)

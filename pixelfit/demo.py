@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import io
 import os
+import shutil
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -279,3 +280,45 @@ def write_demo_set(name: str, out: str | os.PathLike) -> list[Path]:
     for image, path in zip(demo.images, rel):
         written.append(write_bytes(out / path, png_bytes(image)))
     return written
+
+
+def demo_cache_folder() -> Path:
+    """Where demo sets are generated when pixelfit is installed without its source tree."""
+    from platformdirs import user_cache_dir
+
+    return Path(user_cache_dir("pixelfit", appauthor=False)) / "demo_sets"
+
+
+def resolve_dataset_path(path: str | os.PathLike, note: Callable[[str], None] | None = None) -> Path:
+    """The path as given, or a bundled demo set by name (``bottle-caps``) when no such path exists.
+
+    Demo sets are looked up in ``./demo_sets``, beside the package (a source checkout) and in the
+    user's cache folder. An installed package carries no demo sets; the first use of a name then
+    generates the set into the cache folder (byte for byte the bundled copy) and says so through
+    ``note``.
+    """
+    p = Path(path)
+    if p.exists():
+        return p
+    here = Path(__file__).resolve().parent
+    cache = demo_cache_folder()
+    for base in (Path.cwd() / "demo_sets", here.parent / "demo_sets", here / "demo_sets", cache):
+        if (base / p).is_dir():
+            return base / p
+    name = str(path)
+    if name not in GENERATORS:
+        return p
+    target = cache / name
+    staging = cache / f".{name}.{os.getpid()}.tmp"
+    if staging.exists():
+        shutil.rmtree(staging)
+    write_demo_set(name, staging)
+    try:
+        os.replace(staging, target)
+    except OSError:  # another process finished first: use its copy
+        shutil.rmtree(staging, ignore_errors=True)
+        if not target.is_dir():
+            raise
+    if note is not None:
+        note(f"generated the demo set {name!r} into {target} (first use)")
+    return target

@@ -331,11 +331,11 @@ def test_start_on_demo_set_or_ask_for_a_folder(qtbot, window, class_folder, tmp_
     w = window
     asked = []
     monkeypatch.setattr(w, "choose_folder", lambda: asked.append(True))
-    monkeypatch.setattr("pixelfit.data.resolve_dataset_path", lambda name: tmp_path / "no-demo-here")
+    monkeypatch.setattr("pixelfit.demo.resolve_dataset_path", lambda name: tmp_path / "no-demo-here")
     main_window._open_initial(w, None)
     qtbot.waitUntil(lambda: asked == [True], timeout=2000)
     assert "demo set" in w.strip.text.text() and w.session.dataset is None
-    monkeypatch.setattr("pixelfit.data.resolve_dataset_path", lambda name: class_folder)
+    monkeypatch.setattr("pixelfit.demo.resolve_dataset_path", lambda name: class_folder)
     main_window._open_initial(w, None)
     assert w.session.dataset is not None and w.session.dataset.source == str(class_folder)
 

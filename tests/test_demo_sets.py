@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import json
+import os
 from pathlib import Path
 
 import pytest
@@ -99,3 +100,32 @@ def test_a_readme_beside_the_patches_is_not_a_skipped_file(class_folder, prespli
         assert ds.skipped == [] and "README.md" not in ds.names
     (class_folder / "notes.txt").write_text("not a patch\n")
     assert [s.path for s in load_dataset(class_folder).skipped] == ["notes.txt"]
+
+
+def test_installed_package_generates_a_missing_demo_set_into_the_cache(tmp_path):
+    # An installed package (no source tree beside it) carries no demo sets: the first use of a
+    # name generates the set into the user's cache folder, byte for byte the bundled copy.
+    import shutil
+    import subprocess
+    import sys
+
+    import pixelfit
+
+    pkg = tmp_path / "site"
+    shutil.copytree(Path(pixelfit.__file__).parent, pkg / "pixelfit", ignore=shutil.ignore_patterns("__pycache__"))
+    work = tmp_path / "elsewhere"
+    work.mkdir()
+    env = {"PATH": os.environ.get("PATH", ""), "PYTHONPATH": str(pkg), "XDG_CACHE_HOME": str(tmp_path / "cache"),
+           "HOME": str(tmp_path), "PYTHONDONTWRITEBYTECODE": "1"}
+    run = [sys.executable, "-m", "pixelfit", "scan", "bottle-caps"]
+    first = subprocess.run(run, cwd=work, env=env, capture_output=True, text=True, timeout=300)
+    assert first.returncode == 0, first.stderr
+    assert "generated the demo set 'bottle-caps'" in first.stderr
+    assert "2000 patches of 10x10" in first.stdout
+    cached = tmp_path / "cache" / "pixelfit" / "demo_sets" / "bottle-caps"
+    bundled = SHIPPED / "bottle-caps"
+    files = sorted(p.relative_to(bundled) for p in bundled.rglob("*.png"))
+    assert files == sorted(p.relative_to(cached) for p in cached.rglob("*.png"))
+    assert all((cached / f).read_bytes() == (bundled / f).read_bytes() for f in files[::97])
+    again = subprocess.run(run, cwd=work, env=env, capture_output=True, text=True, timeout=120)
+    assert again.returncode == 0 and "generated" not in again.stderr

@@ -360,7 +360,7 @@ class MainWindow(QtWidgets.QMainWindow):
 
 
 def _open_initial(window: MainWindow, path: str | None) -> None:
-    from pixelfit.data import resolve_dataset_path
+    from pixelfit.demo import resolve_dataset_path
 
     target = resolve_dataset_path(path or DEMO_SET)
     if target.exists():
