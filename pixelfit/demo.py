@@ -302,7 +302,8 @@ def resolve_dataset_path(path: str | os.PathLike, note: Callable[[str], None] | 
         return p
     here = Path(__file__).resolve().parent
     cache = demo_cache_folder()
-    for base in (Path.cwd() / "demo_sets", here.parent / "demo_sets", here / "demo_sets", cache):
+    # ./demo_sets stays relative, so reports and printed paths read as the user typed them.
+    for base in (Path("demo_sets"), here.parent / "demo_sets", here / "demo_sets", cache):
         if (base / p).is_dir():
             return base / p
     name = str(path)
