@@ -55,11 +55,11 @@ def scan_check(ds: Dataset) -> dict:
 
     try:
         prep = prepare(ds, Binarizer("otsu"))
-    except PixelfitError:
+    except PixelfitError as exc:
         pos, _ = choose_positive(ds.counts)
         B = Binarizer("otsu").fit(ds.images).transform(ds.images).reshape(len(ds), -1)
         check = check_data(ds.images, ds.labels, binary_target(ds, pos), pack_binarized(B), B.shape[1])
-        return {**check.counts(), "binarize": "otsu", "split": None}
+        return {**check.counts(), "binarize": "otsu", "split": None, "no_split": str(exc)}
     assert prep.check is not None
     return {**prep.check.counts(), "binarize": "otsu", "split": prep.split_method}
 
@@ -108,6 +108,8 @@ def cmd_scan(args) -> int:
     c = rep["check"]
     where = {None: "all patches, unsplit", "given": "the folder's own split"}.get(
         c["split"], f"the default {c['split']} split")
+    if c.get("no_split"):
+        print(f"no default split: {c['no_split']}")
     print(f"data check (binarized with otsu, the default; {where}):")
     for line in check_lines(c):
         print("  " + line)

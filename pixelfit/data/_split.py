@@ -104,4 +104,12 @@ def grouped_split(y: np.ndarray, groups: np.ndarray, test_fraction: float = 0.25
         elif have < want:
             pool = np.flatnonzero(of_c & ~mask)
             mask[rng.permutation(pool)[: want - have]] = True
+    for c, want in target.items():
+        if want and not (mask & (y == c)).any() or (y == c).any() and (mask | (y != c)).all():
+            name = (class_names or {}).get(c, c)
+            side = "held-out" if want and not (mask & (y == c)).any() else "training"
+            raise TrainingError(
+                f"class {name!r} has no {side} patch when identical grey patches stay together "
+                f"(the largest group of copies among its {int((y == c).sum())} patches holds "
+                f"{int(sizes[ids[y == c]].max())}, counting every class); use --split stratified to measure anyway, knowing that copies will leak")
     return mask
