@@ -222,10 +222,10 @@ def cmd_fit(args) -> int:
     leak = ""
     if check.leaked:
         leak = (f" ({check.figures['leaked_test_grey']} with a grey copy in training, "
-                f"{check.figures['leaked_test_binary']} with a binarized copy)")
+                f"{check.figures['leaked_test_binary']} with a binarized copy;")
     print(f"{ds.source}: {len(ds)} patches of {h}x{w}; detecting {prep.positive!r} against {prep.negative!r}; "
           f"{len(prep.y_train)} train / {len(prep.y_test)} held-out{leak}"
-          f"{' (pre-split)' if prep.presplit else f' ({prep.split_method} split)'}; "
+          f"{(' ' if leak else ' (') + ('pre-split)' if prep.presplit else f'{prep.split_method} split)')}; "
           f"binarize {prep.binarizer.describe()}")
     warning = check.warning()
     if warning:

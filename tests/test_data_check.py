@@ -227,7 +227,7 @@ def test_check_command_and_fit_write_the_contract(tmp_path, capsys):
     assert list(chk) == list(CHECK_KEYS) and isinstance(chk["suspects"], list)
     assert chk["leaked_test_grey"] > 0 and chk["conflict_groups"] > 0
     warning = [line for line in out.splitlines() if line.startswith("warning:")]
-    assert len(warning) == 1 and "held-out patch(es) have an exact grey copy" in warning[0]
+    assert len(warning) == 1 and "held-out patches with a copy in training" in warning[0]
     assert "held-out F1 without the" in out
     assert all(r["held_out_without_leaked"]["left_out"] == chk["leaked_test_binary"] for r in s["rungs"])
     split_rows = list(csv.DictReader(open(tmp_path / "f" / "split.csv")))

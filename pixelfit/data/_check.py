@@ -233,8 +233,8 @@ class DataCheck:
         f = self.figures
         parts = []
         if self.leaked:
-            parts.append(f"{f['leaked_test_grey']} held-out patch(es) have an exact grey copy in training "
-                         f"({f['leaked_test_binary']} a binarized copy)")
+            parts.append(f"held-out patches with a copy in training: {f['leaked_test_grey']} grey, "
+                         f"{f['leaked_test_binary']} binarized")
         if f["conflict_groups"]:
             floor = "" if f["error_floor"] is None else f"; no rule can do better than {100 * f['error_floor']:.1f} % " \
                                                         "training error at this binarization"
