@@ -22,8 +22,8 @@ from threadpoolctl import threadpool_limits
 from pixelfit.data import (
     SPLIT_METHODS,
     Binarizer,
-    Dataset,
     DataCheck,
+    Dataset,
     binary_target,
     check_data,
     choose_positive,
@@ -413,11 +413,11 @@ def suspect_labels(prep: Prepared, rungs: list[Rung], high: float = SUSPECT_SCOR
     The list is for a person to look at: nothing is relabelled. Sorted by score, highest first;
     None when no rung has out-of-fold scores (cross-validation off, or no scored family).
     """
-    ranked = sorted((r for r in rungs if r.oof_scores is not None and r.cv),
-                    key=lambda r: -r.cv["f1_mean"])[:3]
+    ranked = sorted(((r.cv["f1_mean"], r.oof_scores) for r in rungs if r.oof_scores is not None and r.cv),
+                    key=lambda t: -t[0])[:3]
     if not ranked:
         return None
-    p = np.vstack([r.oof_scores for r in ranked])
+    p = np.vstack([scores for _, scores in ranked])
     other = np.where(prep.y_train, 1.0 - p, p).min(axis=0)  # each rung's probability of the other class
     rows = np.flatnonzero(~prep.test_mask)
     ds = prep.dataset

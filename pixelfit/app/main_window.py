@@ -11,8 +11,8 @@ from pathlib import Path
 from pixelfit import ladder_process
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets
 from pixelfit.app.session import Session
-from pixelfit.app.widgets.climb_panel import ClimbPanel
 from pixelfit.app.widgets.check_view import DataCheckView
+from pixelfit.app.widgets.climb_panel import ClimbPanel
 from pixelfit.app.widgets.gallery import PatchGallery
 from pixelfit.app.widgets.inspector import RungInspector
 from pixelfit.app.widgets.ladder_view import ErrorPlot, LadderTable

@@ -35,11 +35,10 @@ from pathlib import Path
 
 import numpy as np
 
-from pixelfit.data import Binarizer, Dataset, grey_histogram, load_dataset
+from pixelfit.data import FINDINGS, Binarizer, DataCheck, Dataset, grey_histogram, load_dataset
 from pixelfit.errors import PixelfitError
 from pixelfit.evaluate._compare import threshold_for_target
 from pixelfit.evaluate._metrics import detection_metrics
-from pixelfit.data import FINDINGS, DataCheck
 from pixelfit.ladder import Prepared, Rung, conclude, prepare, suspect_labels
 from pixelfit.models import FAMILIES, FAMILY_ORDER, plan_rungs
 from pixelfit.report import error_curves

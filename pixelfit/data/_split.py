@@ -111,5 +111,6 @@ def grouped_split(y: np.ndarray, groups: np.ndarray, test_fraction: float = 0.25
             raise TrainingError(
                 f"class {name!r} has no {side} patch when identical grey patches stay together "
                 f"(the largest group of copies among its {int((y == c).sum())} patches holds "
-                f"{int(sizes[ids[y == c]].max())}, counting every class); use --split stratified to measure anyway, knowing that copies will leak")
+                f"{int(sizes[ids[y == c]].max())}, counting every class); "
+                "use --split stratified to measure anyway, knowing that copies will leak")
     return mask
