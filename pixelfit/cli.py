@@ -15,7 +15,7 @@ from pixelfit import __version__
 from pixelfit.data import Binarizer, Dataset, choose_positive, load_dataset
 from pixelfit.demo import resolve_dataset_path as _resolve
 from pixelfit.errors import PixelfitError
-from pixelfit.text import ladder_table, metrics_line, pixel_grid
+from pixelfit.text import fmt, ladder_table, metrics_line, pixel_grid
 
 EXIT_OK, EXIT_INCOMPLETE, EXIT_BAD_INPUT = 0, 1, 2
 
@@ -30,12 +30,43 @@ class _Parser(argparse.ArgumentParser):
         self.exit(EXIT_BAD_INPUT, f"pixelfit: {message} (see --help)\n")
 
 
+def scan_check(ds: Dataset) -> dict:
+    """The data check as ``pixelfit fit`` with its defaults would find it (otsu binarization, the
+    default split); where that split is impossible (too few patches), over all patches, unsplit."""
+    from pixelfit.data import binary_target, check_data, pack_binarized
+    from pixelfit.ladder import prepare
+
+    try:
+        prep = prepare(ds, Binarizer("otsu"))
+    except PixelfitError as exc:
+        pos, _ = choose_positive(ds.counts)
+        B = Binarizer("otsu").fit(ds.images).transform(ds.images).reshape(len(ds), -1)
+        check = check_data(ds.images, ds.labels, binary_target(ds, pos), pack_binarized(B), B.shape[1])
+        return {**check.counts(), "binarize": "otsu", "split": None, "no_split": str(exc)}
+    assert prep.check is not None
+    return {**prep.check.counts(), "binarize": "otsu", "split": prep.split_method}
+
+
 def scan_report(ds: Dataset) -> dict:
     pos, neg = choose_positive(ds.counts)
     return {"source": ds.source, "layout": ds.layout, "shape": list(ds.shape), "patches": len(ds),
             "counts": ds.counts, "default_positive": pos, "negative": neg,
             "split": None if ds.subset is None else {part: int((ds.subset == part).sum()) for part in ("train", "test")},
-            "skipped": [{"path": s.path, "reason": s.reason} for s in ds.skipped]}
+            "skipped": [{"path": s.path, "reason": s.reason} for s in ds.skipped],
+            "check": scan_check(ds)}
+
+
+def check_lines(c: dict) -> list[str]:
+    """The data check's counts as text (scan, check)."""
+    lines = [f"duplicates: {c['duplicate_groups']} group(s) of identical grey patches holding "
+             f"{c['duplicate_patches']} patches; {c['cross_class_duplicate_groups']} group(s) span classes"]
+    floor = "-" if c["error_floor"] is None else f"{100 * c['error_floor']:.1f} %"
+    lines.append(f"conflicts: {c['conflict_groups']} group(s) of identical binarized patches carry both labels "
+                 f"({c['conflict_patches']} patches); error floor {floor}")
+    if c["leaked_test_grey"] is not None:
+        lines.append(f"leakage: {c['leaked_test_grey']} held-out patch(es) with a grey copy in training, "
+                     f"{c['leaked_test_binary']} with a binarized copy, {c['near_duplicate_test']} within one bit")
+    return lines
 
 
 def cmd_scan(args) -> int:
@@ -57,7 +88,46 @@ def cmd_scan(args) -> int:
             print(f"  {s['path']}: {s['reason']}")
     else:
         print("skipped nothing")
+    c = rep["check"]
+    where = {None: "all patches, unsplit", "given": "the folder's own split"}.get(
+        c["split"], f"the default {c['split']} split")
+    if c.get("no_split"):
+        print(f"no default split: {c['no_split']}")
+    print(f"data check (binarized with otsu, the default; {where}):")
+    for line in check_lines(c):
+        print("  " + line)
     return EXIT_OK
+
+
+def cmd_check(args) -> int:
+    from pixelfit.ladder import prepare
+    from pixelfit.outputs import write_check_outputs
+
+    ds = load_dataset(resolve_dataset_path(args.path))
+    binarizer = Binarizer.parse(args.binarize, invert=args.invert)
+    prep = prepare(ds, binarizer, args.positive, args.test_fraction, args.seed, args.split)
+    try:
+        Path(args.out).mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise PixelfitError(f"--out {args.out}: cannot create the folder ({exc.strerror or exc})") from None
+    doc = write_check_outputs(args.out, prep)
+    assert prep.check is not None
+    print(f"{ds.source}: {len(ds)} patches; {len(prep.y_train)} train / {len(prep.y_test)} held-out "
+          f"({prep.split_method} split); binarize {prep.binarizer.describe()}")
+    for line in check_lines(doc["check"]):
+        print("  " + line)
+    print("  suspect labels: not looked for (they need trained rungs: see `pixelfit fit`)")
+    print(f"wrote {args.out}/check.json, check.csv ({len(prep.check.findings)} flagged row(s))")
+    return EXIT_OK
+
+
+def _add_split_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--split", choices=("group-duplicates", "stratified"), default="group-duplicates",
+                   help="how to hold out patches when the folder is not pre-split: group-duplicates (the "
+                        "default) keeps identical grey patches on one side of the split and of every CV fold; "
+                        "stratified draws patches one by one")
+    p.add_argument("--test-fraction", type=float, default=0.25, help="held-out share when not pre-split (0.25)")
+    p.add_argument("--seed", type=int, default=0, help="seed of the split, folds and models (0)")
 
 
 class _ProgressBar:
@@ -86,13 +156,13 @@ class _ProgressBar:
 
 
 def cmd_fit(args) -> int:
-    from pixelfit.ladder import LadderCancelled, conclude, prepare, run_ladder
+    from pixelfit.ladder import LadderCancelled, conclude, prepare, run_ladder, suspect_labels
     from pixelfit.models import parse_families, parse_size_overrides, plan_rungs
     from pixelfit.outputs import write_fit_outputs
 
     ds = load_dataset(resolve_dataset_path(args.path))
     binarizer = Binarizer.parse(args.binarize, invert=args.invert)
-    prep = prepare(ds, binarizer, args.positive, args.test_fraction, args.seed)
+    prep = prepare(ds, binarizer, args.positive, args.test_fraction, args.seed, args.split)
     families = parse_families(args.families)
     rungs_plan = plan_rungs(families, prep.n_pixels, args.max_size, parse_size_overrides(args.sizes))
     if not rungs_plan:
@@ -102,11 +172,22 @@ def cmd_fit(args) -> int:
     except OSError as exc:
         raise PixelfitError(f"--out {args.out}: cannot create the folder ({exc.strerror or exc})") from None
     settings = {"families": families, "max_size": args.max_size, "sizes": args.sizes, "folds": args.folds,
+                "split": args.split,
                 "seed": args.seed, "target_precision": args.target_precision, "target_recall": args.target_recall}
     h, w = prep.shape
+    check = prep.check
+    assert check is not None
+    leak = ""
+    if check.leaked:
+        leak = (f" ({check.figures['leaked_test_grey']} with a grey copy in training, "
+                f"{check.figures['leaked_test_binary']} with a binarized copy;")
     print(f"{ds.source}: {len(ds)} patches of {h}x{w}; detecting {prep.positive!r} against {prep.negative!r}; "
-          f"{len(prep.y_train)} train / {len(prep.y_test)} held-out"
-          f"{' (pre-split)' if prep.presplit else ''}; binarize {prep.binarizer.describe()}")
+          f"{len(prep.y_train)} train / {len(prep.y_test)} held-out{leak}"
+          f"{(' ' if leak else ' (') + ('pre-split)' if prep.presplit else f'{prep.split_method} split)')}; "
+          f"binarize {prep.binarizer.describe()}")
+    warning = check.warning()
+    if warning:
+        print(warning)
     if ds.skipped:
         print(f"skipped {len(ds.skipped)} file(s) on import (see summary.json or `pixelfit scan`)")
     bar = _ProgressBar()
@@ -123,15 +204,26 @@ def cmd_fit(args) -> int:
     finally:
         bar.close()
     recommended = conclude(done_rungs, prep.y_test) if done_rungs else None
+    check.suspects = suspect_labels(prep, done_rungs)
     if args.rules and done_rungs:
         _write_rules(args.out, prep, done_rungs)
     summary = write_fit_outputs(args.out, prep, done_rungs, recommended, settings, cancelled)
     print(ladder_table(summary))
+    leak_free = [(f"{r['family']}-{r['size']}", r["held_out_without_leaked"]) for r in summary["rungs"]
+                 if r.get("held_out_without_leaked")]
+    if leak_free:
+        n_left = leak_free[0][1]["left_out"]
+        changes = [f"{k} {fmt(v['f1'])} ({'-' if v['f1_change'] is None else format(v['f1_change'], '+.3f')})"
+                   for k, v in leak_free]
+        print(f"held-out F1 without the {n_left} patch(es) whose binarized copy is in training: " + ", ".join(changes))
+    if check.suspects:
+        print(f"suspect labels: {len(check.suspects)} training patch(es) the strongest rungs all call the other "
+              f"class (listed in summary.json and check.csv; nothing was relabelled)")
     if recommended is not None:
         print(f"recommended: {recommended.key} (smallest rung within one standard error of the best CV F1)")
     else:
         print("no recommendation: it needs cross-validation (--folds of at least 2)")
-    print(f"wrote {args.out}/summary.json, summary.csv, split.csv, ladder.png, heatmaps/"
+    print(f"wrote {args.out}/summary.json, summary.csv, split.csv, check.csv, ladder.png, heatmaps/"
           f"{', rules/' if args.rules and done_rungs else ''}")
     if cancelled:
         print(f"interrupted: {len(done_rungs)} of {len(rungs_plan)} rungs finished and were written", file=sys.stderr)
@@ -293,6 +385,19 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--json", action="store_true", help="print the report as JSON")
     s.set_defaults(func=cmd_scan)
 
+    c = sub.add_parser("check", help="check the data for duplicates, conflicting labels and leakage",
+                       description="Find identical grey patches (within and across classes), identical "
+                       "binarized patches with both labels and the error floor they impose, and held-out "
+                       "patches with a copy (or a one-bit neighbour) in training; write check.json and "
+                       "check.csv into --out. Nothing is trained.")
+    c.add_argument("path", help="folder of patches, .npz file, or a demo set name")
+    c.add_argument("--out", required=True, help="output folder (created if missing)")
+    c.add_argument("--binarize", default="otsu", metavar="METHOD", help="as for fit; default otsu")
+    c.add_argument("--invert", action="store_true", help="flip the bits after thresholding")
+    c.add_argument("--positive", metavar="CLASS", help="class to detect (default: the less frequent class)")
+    _add_split_options(c)
+    c.set_defaults(func=cmd_check)
+
     f = sub.add_parser("fit", help="train the ladder and write the results",
                        description="Train the ladder of models by size on the binarized patches; write "
                        "summary.json, summary.csv, split.csv, ladder.png and heatmaps/ into --out.")
@@ -303,8 +408,7 @@ def build_parser() -> argparse.ArgumentParser:
                         "mean-patch; default otsu")
     f.add_argument("--invert", action="store_true", help="flip the bits after thresholding (dark objects)")
     f.add_argument("--positive", metavar="CLASS", help="class to detect (default: the less frequent class)")
-    f.add_argument("--test-fraction", type=float, default=0.25, help="held-out share when not pre-split (0.25)")
-    f.add_argument("--seed", type=int, default=0, help="seed of the split, folds and models (0)")
+    _add_split_options(f)
     f.add_argument("--families", metavar="LIST", help="comma-separated: constant,lut,nb,logistic,tree,mlp,memorize "
                    "(default all)")
     f.add_argument("--max-size", type=int, metavar="K", help="largest size on every family's axis")

@@ -16,10 +16,23 @@ from functools import cached_property
 import numpy as np
 from sklearn.base import clone
 from sklearn.exceptions import ConvergenceWarning
-from sklearn.model_selection import StratifiedKFold
+from sklearn.model_selection import StratifiedGroupKFold, StratifiedKFold
 from threadpoolctl import threadpool_limits
 
-from pixelfit.data import Binarizer, Dataset, binary_target, choose_positive, fingerprint, stratified_split
+from pixelfit.data import (
+    SPLIT_METHODS,
+    Binarizer,
+    DataCheck,
+    Dataset,
+    binary_target,
+    check_data,
+    choose_positive,
+    fingerprint,
+    grey_groups,
+    grouped_split,
+    pack_binarized,
+    stratified_split,
+)
 from pixelfit.errors import TrainingError
 from pixelfit.evaluate import (
     detection_metrics,
@@ -58,6 +71,9 @@ class Prepared:
     X_train, X_test : ndarray of shape (n, n_pixels), bool
     y_train, y_test : ndarray of shape (n,), bool — True for the positive class
     test_mask : ndarray of shape (n_patches,), bool — over the whole dataset
+    split_method : ``stratified``, ``group-duplicates`` or ``given`` (a pre-split folder)
+    groups : ndarray of shape (n_patches,), int — group of identical grey patches of each patch
+    check : DataCheck — duplicates, conflicts and leakage of this split and binarization
     """
 
     dataset: Dataset
@@ -72,6 +88,17 @@ class Prepared:
     test_fraction: float | None
     seed: int
     presplit: bool
+    split_method: str = "stratified"
+    groups: np.ndarray | None = None
+    check: DataCheck | None = None
+
+    @property
+    def train_groups(self) -> np.ndarray | None:
+        """Grey-duplicate groups of the training patches when CV folds must keep them together."""
+        if self.split_method != "group-duplicates" or self.groups is None:
+            return None
+        g = self.groups[~self.test_mask]
+        return g if len(np.unique(g)) < len(g) else None
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -92,23 +119,36 @@ class Prepared:
 
 
 def prepare(dataset: Dataset, binarizer: Binarizer, positive: str | None = None,
-            test_fraction: float = 0.25, seed: int = 0) -> Prepared:
-    """Pick the positive class, split (unless pre-split), fit the binarizer on training patches."""
+            test_fraction: float = 0.25, seed: int = 0, split: str = "group-duplicates") -> Prepared:
+    """Pick the positive class, split (unless pre-split), fit the binarizer on training patches,
+    and run the data check on the result.
+
+    ``split`` is ``group-duplicates`` (identical grey patches stay on one side; the same draw as
+    ``stratified`` when there are none) or ``stratified``; a pre-split folder keeps its split.
+    """
+    if split not in SPLIT_METHODS:
+        raise TrainingError(f"--split must be one of {', '.join(SPLIT_METHODS)}, not {split!r}")
     pos, neg = choose_positive(dataset.counts, positive)
     y = binary_target(dataset, pos)
+    grey = grey_groups(dataset.images)
+    names = {True: pos, False: neg}
     if dataset.subset is not None:
         test_mask = dataset.subset == "test"
-        presplit = True
+        presplit, method = True, "given"
+    elif split == "group-duplicates":
+        test_mask = grouped_split(y, grey.ids, test_fraction, seed, names)
+        presplit, method = False, split
     else:
-        test_mask = stratified_split(y, test_fraction, seed, {True: pos, False: neg})
-        presplit = False
+        test_mask = stratified_split(y, test_fraction, seed, names)
+        presplit, method = False, split
     train_mask = ~test_mask
     if not y[train_mask].any() or y[train_mask].all():
         raise TrainingError("the training part must hold patches of both classes")
     fitted = binarizer.fit(dataset.images[train_mask])
     B = fitted.transform(dataset.images).reshape(len(dataset), -1)
+    check = check_data(dataset.images, dataset.labels, y, pack_binarized(B), B.shape[1], test_mask, grey)
     return Prepared(dataset, fitted, pos, neg, test_mask, B[train_mask], y[train_mask], B[test_mask], y[test_mask],
-                    None if presplit else test_fraction, seed, presplit)
+                    None if presplit else test_fraction, seed, presplit, method, grey.ids, check)
 
 
 @dataclass
@@ -129,6 +169,7 @@ class Rung:
     test_scores: np.ndarray | None
     operating: dict | None
     search: dict | None = None
+    oof_scores: np.ndarray | None = None  # out-of-fold scores of the training patches, when every one has one
     notes: list[str] = field(default_factory=list)
     seconds: float = 0.0
     recommended: bool = False
@@ -177,12 +218,20 @@ class Progress:
     rung: Rung | None = None
 
 
-def effective_folds(y: np.ndarray, folds: int) -> tuple[int, str | None]:
-    """Folds that the training classes allow, and a note when fewer than asked."""
+def effective_folds(y: np.ndarray, folds: int, groups: np.ndarray | None = None) -> tuple[int, str | None]:
+    """Folds that the training classes (and groups of identical patches) allow, and a note when
+    fewer than asked."""
     if folds == 0:
         return 0, None
     if folds < 2:
         raise TrainingError(f"--folds must be 0 (off) or at least 2, not {folds}")
+    if groups is not None:
+        n_groups = len(np.unique(groups))
+        if n_groups < folds:
+            if n_groups >= 2:
+                return n_groups, (f"cross-validation uses {n_groups} folds, not {folds}: the training part "
+                                  f"holds only {n_groups} distinct patches")
+            return 0, "cross-validation is off: every training patch is the same grey patch"
     smallest = int(min(np.sum(y), np.sum(~y)))
     if smallest >= folds:
         return folds, None
@@ -261,8 +310,12 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     oof = np.full(len(y), np.nan) if fam.scored else None
     if folds:
         f1s, errs = [], []
-        splitter = StratifiedKFold(n_splits=folds, shuffle=True, random_state=seed)
-        for i, (tr, va) in enumerate(splitter.split(X, y)):
+        groups = prep.train_groups
+        if groups is None:
+            splits = StratifiedKFold(n_splits=folds, shuffle=True, random_state=seed).split(X, y)
+        else:  # identical grey patches stay in one fold, so no fold validates on its own training copy
+            splits = StratifiedGroupKFold(n_splits=folds, shuffle=True, random_state=seed).split(X, y, groups)
+        for i, (tr, va) in enumerate(splits):
             if cancel is not None and cancel():
                 raise LadderCancelled
             est = _fit(clone(template), X[tr], y[tr], cancel, notes)
@@ -312,8 +365,9 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     search = None
     if family == "lut":
         search = {"method": est.search_, "candidates": est.n_candidates_}
+    oof_ok = oof is not None and folds and not np.isnan(oof).any()
     return Rung(family, size, est, train, test, cv, figures, bound, used, importance, test_pred, test_scores,
-                operating, search, notes, time.perf_counter() - t0)
+                operating, search, oof if oof_ok else None, notes, time.perf_counter() - t0)
 
 
 def run_ladder(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, seed: int = 0,
@@ -331,7 +385,7 @@ def run_ladder(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, see
 
 
 def _run(prep, rungs, folds, seed, cancel, target_precision, target_recall) -> Iterator[Progress]:
-    folds, fold_note = effective_folds(prep.y_train, folds)
+    folds, fold_note = effective_folds(prep.y_train, folds, prep.train_groups)
     notes = [n for n in (fold_note, identical_note(prep.X_train)) if n]
     per_rung = folds + 1
     total = per_rung * len(rungs)
@@ -351,6 +405,52 @@ def _run(prep, rungs, folds, seed, cancel, target_precision, target_recall) -> I
                 yield Progress(done, total, message)
         rung.notes.extend(notes)
         yield Progress(done, total, f"{rung.key} done", rung)
+
+
+#: Out-of-fold probability of the other class from which a rung "calls the other class with a high
+#: score": a choice of ours (a confident 90/10 call), not a fact of the data.
+SUSPECT_SCORE = 0.9
+
+
+def suspect_labels(prep: Prepared, rungs: list[Rung], high: float = SUSPECT_SCORE) -> list[dict] | None:
+    """Training patches whose label the strongest rungs all dispute with a high score.
+
+    The strongest rungs are the three (or fewer, when fewer have them) with out-of-fold scores and
+    the best CV F1. A patch is a suspect when every one of them gives the other class an
+    out-of-fold probability of at least ``high``; ``score`` is the least of those probabilities.
+    The list is for a person to look at: nothing is relabelled. Sorted by score, highest first;
+    None when no rung has out-of-fold scores (cross-validation off, or no scored family).
+    """
+    ranked = sorted(((r.cv["f1_mean"], r.oof_scores) for r in rungs if r.oof_scores is not None and r.cv),
+                    key=lambda t: -t[0])[:3]
+    if not ranked:
+        return None
+    p = np.vstack([scores for _, scores in ranked])
+    other = np.where(prep.y_train, 1.0 - p, p).min(axis=0)  # each rung's probability of the other class
+    rows = np.flatnonzero(~prep.test_mask)
+    ds = prep.dataset
+    out = [{"path": ds.names[rows[i]], "label": str(ds.labels[rows[i]]), "score": round(float(other[i]), 6)}
+           for i in np.flatnonzero(other >= high)]
+    return sorted(out, key=lambda d: -d["score"])
+
+
+def leak_free_test(prep: Prepared, rung: Rung) -> dict | None:
+    """Held-out F1 of a rung without the held-out patches whose binarized copy is in training.
+
+    None when no held-out patch has one. ``f1_change`` is the F1 without them minus the F1 with
+    them (None when either is undefined).
+    """
+    if prep.check is None or not prep.check.figures["leaked_test_binary"]:
+        return None
+    leaked = np.zeros(len(prep.test_mask), bool)
+    for i, finding, _ in prep.check.findings:
+        if finding == "leaked-binary":
+            leaked[i] = True
+    keep = ~leaked[prep.test_mask]
+    m = detection_metrics(prep.y_test[keep], np.asarray(rung.test_pred, bool)[keep])
+    before = rung.test["f1"]
+    change = None if m["f1"] is None or before is None else float(m["f1"] - before)
+    return {"n": int(keep.sum()), "left_out": int((~keep).sum()), "f1": m["f1"], "f1_change": change}
 
 
 def conclude(rungs: list[Rung], y_test: np.ndarray) -> Rung | None:

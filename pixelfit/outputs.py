@@ -13,8 +13,8 @@ import numpy as np
 from pixelfit import __version__
 from pixelfit._atomic import write_bytes, write_json, write_text
 from pixelfit.conventions import BOUND_CONVENTION, UNDEFINED_CONVENTION
-from pixelfit.data import raw_fingerprint
-from pixelfit.ladder import Prepared, Rung
+from pixelfit.data import check_csv_rows, raw_fingerprint
+from pixelfit.ladder import Prepared, Rung, leak_free_test
 from pixelfit.models import FAMILIES
 from pixelfit.plots import heatmap_png, ladder_png
 
@@ -34,11 +34,13 @@ def dataset_summary(prep: Prepared) -> dict:
         "skipped": [{"path": s.path, "reason": s.reason} for s in ds.skipped],
         "fingerprint": raw_fingerprint(ds.images, ds.labels),
         "train_fingerprint": prep.train_fingerprint,
+        "check": None if prep.check is None else prep.check.counts(),
     }
 
 
 def split_summary(prep: Prepared) -> dict:
-    return {"test_fraction": prep.test_fraction, "seed": prep.seed, "presplit": prep.presplit,
+    return {"method": prep.split_method, "test_fraction": prep.test_fraction, "seed": prep.seed,
+            "presplit": prep.presplit,
             "n_train": int(len(prep.y_train)), "n_test": int(len(prep.y_test)), "file": "split.csv"}
 
 
@@ -57,7 +59,7 @@ def build_summary(prep: Prepared, rungs: list[Rung], recommended: Rung | None, s
                         "recommendation": "smallest rung (fewest parameters) within one standard error "
                                           "of the best cross-validated F1; the held-out set is never used"},
         "cancelled": cancelled,
-        "rungs": [r.summary(prep.shape) for r in rungs],
+        "rungs": [{**r.summary(prep.shape), "held_out_without_leaked": leak_free_test(prep, r)} for r in rungs],
         "recommended": None if recommended is None else {"family": recommended.family, "size": recommended.size},
     }
 
@@ -94,11 +96,52 @@ def summary_csv(summary: dict) -> str:
 def split_csv(prep: Prepared) -> str:
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(["path", "label", "subset"])
+    w.writerow(["path", "label", "subset", "group"])
     ds = prep.dataset
-    for name, label, test in zip(ds.names, ds.labels, prep.test_mask):
-        w.writerow([name, label, "test" if test else "train"])
+    # group: the id of the patch's group of identical grey patches, empty for a patch with no copy
+    dup = None if prep.check is None else prep.check.grey
+    for i, (name, label, test) in enumerate(zip(ds.names, ds.labels, prep.test_mask)):
+        group = "" if dup is None or dup.sizes[dup.ids[i]] < 2 else f"grey-{dup.ids[i]}"
+        w.writerow([name, label, "test" if test else "train", group])
     return buf.getvalue()
+
+
+def check_csv(prep: Prepared) -> str:
+    """check.csv: one row per flagged patch and finding (``path,label,finding,group``)."""
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["path", "label", "finding", "group"])
+    if prep.check is not None:
+        w.writerows(check_csv_rows(prep.check, prep.dataset.names, prep.dataset.labels))
+    return buf.getvalue()
+
+
+def check_summary(prep: Prepared) -> dict:
+    """check.json: the data check's counts with the split and binarization they were found under."""
+    ds = prep.dataset
+    return {
+        "format": "pixelfit-data-check",
+        "version": 1,
+        "pixelfit_version": __version__,
+        "source": ds.source,
+        "patches": len(ds),
+        "positive": prep.positive,
+        "negative": prep.negative,
+        "binarize": prep.binarizer.to_dict(),
+        "split": {k: v for k, v in split_summary(prep).items() if k != "file"},  # check writes no split.csv
+        "check": None if prep.check is None else prep.check.counts(),
+        "file": "check.csv",
+    }
+
+
+def write_check_outputs(out: str | Path, prep: Prepared) -> dict:
+    """Write check.json and check.csv into ``out``; returns what check.json holds."""
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    doc = check_summary(prep)
+    write_json(out / "check.json", doc)
+    write_text(out / "check.csv", check_csv(prep))
+    return doc
 
 
 def error_curves(rungs: list[Rung]) -> dict[str, dict[str, list[tuple[float, float | None]]]]:
@@ -139,6 +182,7 @@ def write_fit_outputs(out: str | Path, prep: Prepared, rungs: list[Rung], recomm
     write_json(out / "summary.json", summary)
     write_text(out / "summary.csv", summary_csv(summary))
     write_text(out / "split.csv", split_csv(prep))
+    write_text(out / "check.csv", check_csv(prep))
     rec = None if recommended is None else (recommended.family, recommended.size)
     write_bytes(out / "ladder.png", ladder_png(error_curves(rungs), {f: FAMILIES[f].size_name for f in FAMILIES}, rec))
     return summary

@@ -88,7 +88,13 @@ def test_all_patches_identical_runs_and_says_so(tmp_path, capsys):
     images[:, 1:3, 1:3] = 220
     labels = np.array(["spot"] * 12 + ["blank"] * 28)
     ds = Dataset(images, labels, [f"#{i}" for i in range(40)], "generated", "npz")
-    prep = prepare(ds, Binarizer.parse("otsu"), test_fraction=0.25, seed=0)
+    # Copies cannot be kept together and still held out: the default split says so in one line ...
+    with pytest.raises(TrainingError, match="no held-out patch when identical grey patches stay together"):
+        prepare(ds, Binarizer.parse("otsu"), test_fraction=0.25, seed=0)
+    # ... and a stratified split measures anyway, with every held-out patch leaked.
+    prep = prepare(ds, Binarizer.parse("otsu"), test_fraction=0.25, seed=0, split="stratified")
+    assert prep.check.figures["leaked_test_grey"] == len(prep.y_test)
+    assert prep.check.figures["duplicate_groups"] == 1 and prep.check.figures["duplicate_patches"] == 40
     plan = [("constant", 0), ("lut", 2), ("nb", 4), ("logistic", 2), ("tree", 3), ("mlp", 2), ("memorize", 36)]
     records = list(run_ladder(prep, plan, folds=3))
     note = ladder_mod.identical_note(prep.X_train)
@@ -106,7 +112,7 @@ def test_all_patches_identical_runs_and_says_so(tmp_path, capsys):
     path = tmp_path / "same.npz"
     np.savez(path, images=images, labels=labels)
     assert main(["fit", str(path), "--out", str(tmp_path / "run"), "--families", "constant,lut",
-                 "--sizes", "lut=1", "--folds", "3"]) == 0
+                 "--sizes", "lut=1", "--folds", "3", "--split", "stratified"]) == 0
     s = json.loads((tmp_path / "run" / "summary.json").read_text())
     assert all(note in r["notes"] for r in s["rungs"])
 

@@ -11,6 +11,7 @@ from pathlib import Path
 from pixelfit import ladder_process
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets
 from pixelfit.app.session import Session
+from pixelfit.app.widgets.check_view import DataCheckView
 from pixelfit.app.widgets.climb_panel import ClimbPanel
 from pixelfit.app.widgets.gallery import PatchGallery
 from pixelfit.app.widgets.inspector import RungInspector
@@ -99,6 +100,8 @@ class MainWindow(QtWidgets.QMainWindow):
         self.tabs = QtWidgets.QTabWidget()
         self.tabs.addTab(ladder, "Ladder")
         self.tabs.addTab(self.gallery, "Patches")
+        self.check_view = DataCheckView(s)
+        self.tabs.addTab(self.check_view, "Data check")
         self.inspector = RungInspector(s)
         inspector_box = QtWidgets.QGroupBox("Rung inspector")
         QtWidgets.QVBoxLayout(inspector_box).addWidget(self.inspector)
@@ -118,7 +121,7 @@ class MainWindow(QtWidgets.QMainWindow):
         lay.addWidget(split, 1)
         self.setCentralWidget(central)
         self.panels = [self.report, self.prep_panel, self.climb, self.error_plot, self.table, self.gallery,
-                       self.inspector]
+                       self.check_view, self.inspector]
         self._unsubscribe = [s.subscribe("message", self._message), s.subscribe("run", self._update_actions),
                              s.subscribe("selection", self._update_actions),
                              s.subscribe("prep", self._update_actions),

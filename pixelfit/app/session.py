@@ -19,7 +19,11 @@ Events (name: when)
 ``threshold``   the score threshold of the selected rung moved
 ``map``         the kind of per-pixel map shown changed
 ``target``      the target precision changed
+``check``       the data check's suspect labels changed (after a climb)
 ``message``     a line for the status area: ``(text, is_error)``
+
+The data check itself comes with every prepared set (:attr:`Prepared.check`, the same core call
+as ``pixelfit check``), so ``prep`` announces its new findings too.
 """
 
 from __future__ import annotations
@@ -31,17 +35,17 @@ from pathlib import Path
 
 import numpy as np
 
-from pixelfit.data import Binarizer, Dataset, grey_histogram, load_dataset
+from pixelfit.data import FINDINGS, Binarizer, DataCheck, Dataset, grey_histogram, load_dataset
 from pixelfit.errors import PixelfitError
 from pixelfit.evaluate import detection_metrics, threshold_for_target
 from pixelfit.firmware import export_c
-from pixelfit.ladder import Prepared, Rung, conclude, prepare
+from pixelfit.ladder import Prepared, Rung, conclude, prepare, suspect_labels
 from pixelfit.models import FAMILIES, FAMILY_ORDER, plan_rungs
 from pixelfit.outputs import error_curves
 from pixelfit.rulefile import load_rule, save_rung
 
 EVENTS = ("dataset", "prep", "gallery", "settings", "run", "progress", "rungs", "selection", "threshold",
-          "map", "target", "message")
+          "map", "target", "check", "message")
 
 #: Per-pixel maps the inspector can show: rung maps first, then maps of the training data.
 MAP_KINDS = {"native": "model's own weights", "permutation": "permutation (held-out)",
@@ -71,6 +75,7 @@ class Session:
         self.positive: str | None = None
         self.test_fraction = 0.25
         self.seed = 0
+        self.split = "group-duplicates"
         self.prep: Prepared | None = None
         self.gallery_class: str | None = None
         self.families: list[str] = list(DEFAULT_FAMILIES)
@@ -157,7 +162,8 @@ class Session:
             self._emit("prep")
             return
         try:
-            self.prep = prepare(self.dataset, self.binarizer, self.positive, self.test_fraction, self.seed)
+            self.prep = prepare(self.dataset, self.binarizer, self.positive, self.test_fraction, self.seed,
+                                self.split)
         except PixelfitError as exc:
             self.prep = None
             self.say(str(exc), True)
@@ -185,6 +191,42 @@ class Session:
         if b.method in ("fixed", "otsu"):
             return counts, np.array([b.threshold], np.float64)
         return counts, b.patch_thresholds(train)
+
+    # ---- data check ---------------------------------------------------------------------------
+
+    @property
+    def check(self) -> DataCheck | None:
+        """The data check of the prepared set (None before one is prepared)."""
+        return None if self.prep is None else self.prep.check
+
+    def check_counts(self) -> dict[str, int]:
+        """Flagged patches per finding, in :data:`FINDINGS` order (zero counts included)."""
+        return {f: len(self.check_rows(f)) for f in FINDINGS}
+
+    def check_rows(self, finding: str) -> np.ndarray:
+        """Dataset rows flagged with ``finding``, in import order (suspects: highest score first)."""
+        c = self.check
+        if c is None or self.dataset is None:
+            return np.zeros(0, np.intp)
+        if finding == "suspect":
+            where = {n: i for i, n in enumerate(self.dataset.names)}
+            return np.array([where[s["path"]] for s in c.suspects or [] if s["path"] in where], np.intp)
+        return np.array(sorted(i for i, f, _ in c.findings if f == finding), np.intp)
+
+    def check_group(self, row: int, finding: str) -> np.ndarray:
+        """The group a flagged patch belongs to under ``finding``: the patch first, then the others."""
+        c = self.check
+        if c is None:
+            return np.zeros(0, np.intp)
+        group = next((g for i, f, g in c.findings if i == row and f == finding), "")
+        others = [int(i) for i in c.members(group) if i != row]
+        return np.array([row] + others, np.intp)
+
+    def _find_suspects(self) -> None:
+        if self.run_prep is None or self.run_prep.check is None:
+            return
+        self.run_prep.check.suspects = suspect_labels(self.run_prep, self.rungs)
+        self._emit("check")
 
     def set_gallery_class(self, name: str | None) -> None:
         if name == self.gallery_class:
@@ -236,6 +278,9 @@ class Session:
             return None
         self._clear_rungs()
         self.run_prep = self.prep
+        if self.prep.check is not None and self.prep.check.suspects is not None:
+            self.prep.check.suspects = None  # the suspects of an earlier climb
+            self._emit("check")
         self.planned = len(plan)
         self.running = True
         self.progress_state = (0, 0, "starting")
@@ -263,6 +308,7 @@ class Session:
         """``outcome`` is 'finished', 'cancelled' or 'failed' (``detail`` says why)."""
         self.running = False
         self._emit("run")
+        self._find_suspects()
         n = len(self.rungs)
         if outcome == "finished":
             rec = f"; recommended {self.recommended.key}" if self.recommended else ""

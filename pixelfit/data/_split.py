@@ -62,3 +62,56 @@ def raw_fingerprint(images: np.ndarray, labels: np.ndarray) -> str:
     h.update(images.tobytes())
     h.update("\n".join(map(str, labels)).encode())
     return h.hexdigest()
+
+
+SPLIT_METHODS = ("group-duplicates", "stratified")
+
+
+def grouped_split(y: np.ndarray, groups: np.ndarray, test_fraction: float = 0.25, seed: int = 0,
+                  class_names: dict | None = None) -> np.ndarray:
+    """Held-out mask like :func:`stratified_split`, with every group of ``groups`` on one side.
+
+    It starts from the stratified draw, so with no group of two or more patches the split is that
+    draw exactly. Each larger group then goes whole to the side where most of its patches fell
+    (train on a tie), and patches that are alone in their group move between the sides until every
+    class has as many held-out patches as the stratified draw gave it; that is exact whenever each
+    class has enough such patches, and as close as they allow otherwise.
+
+    Parameters
+    ----------
+    y : ndarray of shape (n_patches,)
+    groups : ndarray of shape (n_patches,), int — patches with the same id stay together
+    """
+    mask = stratified_split(y, test_fraction, seed, class_names)
+    y = np.asarray(y)
+    groups = np.asarray(groups)
+    _, ids, sizes = np.unique(groups, return_inverse=True, return_counts=True)
+    ids = ids.reshape(-1)
+    if sizes.max(initial=0) <= 1:
+        return mask
+    target = {c: int((mask & (y == c)).sum()) for c in np.unique(y)}
+    held = np.bincount(ids, weights=mask, minlength=len(sizes))
+    to_test = held * 2 > sizes  # a strict majority of the group was held out
+    multi = sizes[ids] > 1
+    mask[multi] = to_test[ids[multi]]
+    rng = np.random.default_rng(seed)
+    single = ~multi
+    for c, want in target.items():
+        of_c = single & (y == c)
+        have = int((mask & (y == c)).sum())
+        if have > want:
+            pool = np.flatnonzero(of_c & mask)
+            mask[rng.permutation(pool)[: have - want]] = False
+        elif have < want:
+            pool = np.flatnonzero(of_c & ~mask)
+            mask[rng.permutation(pool)[: want - have]] = True
+    for c, want in target.items():
+        if want and not (mask & (y == c)).any() or (y == c).any() and (mask | (y != c)).all():
+            name = (class_names or {}).get(c, c)
+            side = "held-out" if want and not (mask & (y == c)).any() else "training"
+            raise TrainingError(
+                f"class {name!r} has no {side} patch when identical grey patches stay together "
+                f"(the largest group of copies among its {int((y == c).sum())} patches holds "
+                f"{int(sizes[ids[y == c]].max())}, counting every class); "
+                "use --split stratified to measure anyway, knowing that copies will leak")
+    return mask

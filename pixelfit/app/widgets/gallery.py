@@ -15,16 +15,17 @@ Role = QtCore.Qt.ItemDataRole
 class PatchListModel(QtCore.QAbstractListModel):
     """Rows are the session's gallery rows; thumbnails are drawn on first view and cached."""
 
-    def __init__(self, session: Session, parent=None):
+    def __init__(self, session: Session, parent=None, rows_fn=None):
         super().__init__(parent)
         self.session = session
+        self.rows_fn = rows_fn or session.gallery_indices  # which dataset rows to show
         self.rows = np.zeros(0, np.intp)
         self._cache: dict[int, QtGui.QPixmap] = {}
         self.scale = 3
 
     def reset(self) -> None:
         self.beginResetModel()
-        self.rows = self.session.gallery_indices()
+        self.rows = np.asarray(self.rows_fn(), np.intp)
         self._cache.clear()
         self.endResetModel()
 

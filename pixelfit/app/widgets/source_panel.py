@@ -21,17 +21,25 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
         self.summary.setTextInteractionFlags(QtCore.Qt.TextInteractionFlag.TextSelectableByMouse)
         self.positive = QtWidgets.QComboBox()
         self.positive.setToolTip("The class the rule must detect; the others form its negative class")
+        # The badge: shown only when the data check found something.
+        self.check_badge = QtWidgets.QLabel("")
+        self.check_badge.setWordWrap(True)
+        self.check_badge.setStyleSheet("QLabel { background: #f6d58e; color: #402800; border-radius: 4px; "
+                                       "padding: 3px; }")
+        self.check_badge.setVisible(False)
         self.skipped_label = QtWidgets.QLabel("")
         self.skipped = QtWidgets.QListWidget()
         self.skipped.setMaximumHeight(90)
         lay = QtWidgets.QFormLayout(self)
         lay.addRow(self.summary)
+        lay.addRow(self.check_badge)
         lay.addRow("detect", self.positive)
         lay.addRow(self.skipped_label)
         lay.addRow(self.skipped)
         self.positive.activated.connect(self._positive_chosen)
         self.listen(session, "dataset", self.refresh)
         self.listen(session, "prep", self.refresh)
+        self.listen(session, "check", self._badge)
         # A run starting or ending only locks or frees the class choice; the report stays.
         self.listen(session, "run", self._enable)
         self.refresh()
@@ -43,7 +51,28 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
         ds = self.session.dataset
         self.positive.setEnabled(ds is not None and len(ds.counts) > 1 and not self.session.running)
 
+    def _badge(self) -> None:
+        """Name what the data check found, in a few words; hide the badge when it found nothing."""
+        c = self.session.check
+        counts = self.session.check_counts()
+        parts = []
+        if c is not None:
+            f = c.figures
+            if f["duplicate_groups"]:
+                parts.append(f"{f['duplicate_groups']} duplicate group(s)")
+            if f["conflict_groups"]:
+                parts.append(f"{f['conflict_groups']} conflict group(s)")
+            if f["leaked_test_grey"] or f["leaked_test_binary"]:
+                parts.append(f"{f['leaked_test_binary']} held-out with a copy in training")
+            if f["near_duplicate_test"]:
+                parts.append(f"{f['near_duplicate_test']} held-out within one bit")
+            if counts["suspect"]:
+                parts.append(f"{counts['suspect']} suspect label(s)")
+        self.check_badge.setText("data check: " + "; ".join(parts) + " (see the Data check tab)")
+        self.check_badge.setVisible(bool(parts))
+
     def refresh(self) -> None:
+        self._badge()
         s = self.session
         ds = s.dataset
         self.positive.blockSignals(True)
@@ -60,7 +89,8 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
                        for c, n in ds.counts.items())
         split = ""
         if s.prep is not None:
-            kind = "given split" if s.prep.presplit else f"held out {s.prep.test_fraction:.0%}, seed {s.prep.seed}"
+            kind = ("given split" if s.prep.presplit else
+                    f"held out {s.prep.test_fraction:.0%}, seed {s.prep.seed}, {s.prep.split_method}")
             split = f"<br>{len(s.prep.y_train)} train / {len(s.prep.y_test)} held-out ({kind})"
         self.summary.setText(f"<b>{html.escape(ds.source)}</b><br>{len(ds)} patches of {h}&times;{w} "
                              f"({html.escape(ds.layout)}){split}<table>{rows}</table>")

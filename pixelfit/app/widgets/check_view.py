@@ -1,0 +1,119 @@
+"""The data-check view: flagged patches as thumbnails, one finding at a time; a click shows its group."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from pixelfit.app._qt import QtCore, QtWidgets
+from pixelfit.app.session import Session
+from pixelfit.app.widgets import Listens
+from pixelfit.app.widgets.gallery import PatchListModel
+from pixelfit.data import FINDINGS
+
+#: What each finding means, as the view says it.
+FINDING_TEXT = {
+    "duplicate": "identical grey patches",
+    "conflict": "identical bits, both labels",
+    "leaked-grey": "held out, grey copy in training",
+    "leaked-binary": "held out, binarized copy in training",
+    "near-duplicate": "held out, within one bit of training",
+    "suspect": "label disputed by the strongest rungs",
+}
+
+
+def _tile_view(model: PatchListModel) -> QtWidgets.QListView:
+    v = QtWidgets.QListView()
+    v.setViewMode(QtWidgets.QListView.ViewMode.IconMode)
+    v.setResizeMode(QtWidgets.QListView.ResizeMode.Adjust)
+    v.setMovement(QtWidgets.QListView.Movement.Static)
+    v.setUniformItemSizes(True)
+    v.setSpacing(4)
+    v.setModel(model)
+    return v
+
+
+class DataCheckView(Listens, QtWidgets.QWidget):
+    """A finding chooser with counts, the flagged patches, and the group of the clicked one."""
+
+    def __init__(self, session: Session, parent: QtWidgets.QWidget | None = None):
+        super().__init__(parent)
+        self.session = session
+        self.finding = FINDINGS[0]
+        self.group_rows = np.zeros(0, np.intp)
+        self.chooser = QtWidgets.QComboBox()
+        self.figures = QtWidgets.QLabel("")
+        self.figures.setWordWrap(True)
+        self.flagged_model = PatchListModel(session, self, lambda: session.check_rows(self.finding))
+        self.group_model = PatchListModel(session, self, lambda: self.group_rows)
+        self.flagged = _tile_view(self.flagged_model)
+        self.group = _tile_view(self.group_model)
+        self.group_label = QtWidgets.QLabel("click a flagged patch to see its group")
+        top = QtWidgets.QHBoxLayout()
+        top.addWidget(QtWidgets.QLabel("finding"))
+        top.addWidget(self.chooser)
+        top.addStretch(1)
+        lay = QtWidgets.QVBoxLayout(self)
+        lay.setContentsMargins(2, 2, 2, 2)
+        lay.addLayout(top)
+        lay.addWidget(self.figures)
+        lay.addWidget(self.flagged, 3)
+        lay.addWidget(self.group_label)
+        lay.addWidget(self.group, 1)
+        self.chooser.activated.connect(lambda i: self.show_finding(self.chooser.itemData(i)))
+        self.flagged.clicked.connect(lambda index: self.show_group(int(self.flagged_model.rows[index.row()])))
+        self.listen(session, "prep", self.refresh)
+        self.listen(session, "check", self.refresh)
+        self.refresh()
+
+    def show_finding(self, finding: str) -> None:
+        self.finding = finding
+        self.group_rows = np.zeros(0, np.intp)
+        self._fill()
+
+    def show_group(self, row: int) -> None:
+        """Show the clicked patch and the others of its group under the current finding."""
+        self.group_rows = self.session.check_group(row, self.finding)
+        ds = self.session.dataset
+        name = ds.names[row] if ds is not None else str(row)
+        others = len(self.group_rows) - 1
+        self.group_label.setText(f"{name} and the {others} other patch(es) of its group"
+                                 if others else f"{name}: no other patch in its group")
+        self._fill()
+
+    def refresh(self) -> None:
+        counts = self.session.check_counts()
+        if counts.get(self.finding, 0) == 0:
+            self.finding = next((f for f in FINDINGS if counts[f]), FINDINGS[0])
+        self.chooser.blockSignals(True)
+        self.chooser.clear()
+        for f in FINDINGS:
+            self.chooser.addItem(f"{f} ({counts[f]}): {FINDING_TEXT[f]}", f)
+        self.chooser.setCurrentIndex(self.chooser.findData(self.finding))
+        self.chooser.blockSignals(False)
+        c = self.session.check
+        if c is None:
+            self.figures.setText("no data check: open a dataset first")
+        else:
+            f = c.figures
+            floor = "-" if f["error_floor"] is None else f"{100 * f['error_floor']:.1f} %"
+            suspects = "after a climb" if c.suspects is None else str(len(c.suspects))
+            self.figures.setText(
+                f"{f['duplicate_groups']} duplicate group(s) ({f['duplicate_patches']} patches, "
+                f"{f['cross_class_duplicate_groups']} across classes); {f['conflict_groups']} conflict group(s), "
+                f"error floor {floor}; held out with a copy in training: {f['leaked_test_grey']} grey, "
+                f"{f['leaked_test_binary']} binarized, {f['near_duplicate_test']} within one bit; "
+                f"suspects: {suspects}")
+        self.group_rows = np.zeros(0, np.intp)
+        self.group_label.setText("click a flagged patch to see its group")
+        self._fill()
+
+    def _fill(self) -> None:
+        ds = self.session.dataset
+        if ds is not None:
+            h, w = ds.shape
+            s = self.flagged_model.scale
+            size = QtCore.QSize(2 * w * s + 2, h * s)
+            self.flagged.setIconSize(size)
+            self.group.setIconSize(size)
+        self.flagged_model.reset()
+        self.group_model.reset()
