@@ -20,7 +20,10 @@ from pixelfit.plots import heatmap_png, ladder_png
 SUMMARY_FORMAT = "pixelfit-ladder-summary"
 SUMMARY_VERSION = 1
 BOUND_CONVENTION = ("one-sided upper bound on the true error rate at 95 % confidence (delta = 0.05), "
-                    "with ln(1/delta) for the finite-class bound and ln(4/delta) inside Vapnik's bound")
+                    "with ln(1/delta) for the finite-class bound and ln(4/delta) inside Vapnik's bound; "
+                    "Vapnik's bound is vacuous (1.0) when the VC dimension h is at least the number m of "
+                    "training patches; each rung's bound holds for that rung alone, as if it were the only "
+                    "rung tried: it does not account for the recommendation choosing among the rungs")
 UNDEFINED_CONVENTION = "ratios with a zero denominator (e.g. precision with no predicted positive) are null"
 
 

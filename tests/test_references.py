@@ -296,6 +296,35 @@ def test_vc_confidence_crosses_one_where_burges_shows():
     assert all(a < b for a, b in itertools.pairwise(values))
 
 
+@pytest.mark.parametrize("h,m", [(1, 2), (10, 100), (99, 100), (100, 100), (201, 100), (257, 47), (65, 11),
+                                 (65, 10), (10_000, 14)])
+def test_vc_bound_vacuous_from_h_equal_m(h, m):
+    # Burges (1998), Eq. 3 and the text after it (from memory): the bound is only of use for h < l;
+    # with h >= l points a class of VC dimension h can shatter some set of l points, so the
+    # training error says nothing (common practice: report the bound as vacuous, 1). Past h = 2l
+    # the formula's ln(2l/h) is negative and the term falls as h grows; near h = 5.4 l the value
+    # under the root is negative.
+    if h < m:
+        assert vc_confidence(h, m, 0.05) == pytest.approx(_burges_eq3_confidence(h, m, 0.05), rel=1e-12)
+        assert vc_bound(0.0, h, m) == pytest.approx(min(1.0, _burges_eq3_confidence(h, m, 0.05)), rel=1e-12)
+    else:
+        assert vc_confidence(h, m, 0.05) == math.inf
+        for err in (0.0, 0.2, 0.5):
+            assert vc_bound(err, h, m) == 1.0
+            assert vc_bound(err, h, m, 0.05, log2_union=30.0) == 1.0
+
+
+def test_vc_bound_never_falls_as_h_grows():
+    # From the definition of a bound over nested classes (common practice): a larger VC dimension
+    # can never give a smaller bound at the same training error; the bug was a bound falling past
+    # h = 2m (16x16 random labels, m = 47, h = 257 gave 0.248).
+    for m in (11, 47, 300):
+        values = [vc_bound(0.0, h, m) for h in range(1, 20 * m)]
+        assert all(a <= b for a, b in itertools.pairwise(values))
+    assert vc_bound(0.0, 257, 47) == 1.0
+    assert vc_bound(0.0, 20, 5000) < 0.25
+
+
 # --- McNemar ----------------------------------------------------------------------------------
 
 def test_mcnemar_equals_statsmodels():

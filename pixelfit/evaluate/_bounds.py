@@ -67,16 +67,28 @@ def vc_confidence(h: int, m: int, delta: float = 0.05, log2_union: float = 0.0) 
 
     ``log2_union`` spreads delta over 2^log2_union classes (a union bound): ln(delta/4) becomes
     ln(delta/4) - log2_union * ln 2.
+
+    The term is only meaningful for h < m: past h = 2m it *falls* as h grows (ln(2m/h) < 0) and
+    near h = 5.4 m the value under the root turns negative. With h >= m a class of VC dimension h
+    can fit any labelling of the m patches, so nothing is learned about the true error: the term
+    is infinite (the bound is vacuous), see :func:`vc_vacuous`.
     """
-    if m <= 0 or h <= 0:
+    if m <= 0 or h <= 0 or vc_vacuous(h, m):
         return float("inf")
     return math.sqrt((h * (math.log(2.0 * m / h) + 1.0) - math.log(delta / 4.0) + log2_union * LN2) / m)
 
 
+def vc_vacuous(h: int, m: int) -> bool:
+    """True when Vapnik's bound says nothing: the VC dimension h is at least the m training patches."""
+    return h >= m
+
+
 def vc_bound(train_error: float, h: int, m: int, delta: float = 0.05, log2_union: float = 0.0) -> float:
-    """Vapnik's bound on the true error, clipped to 1.
+    """Vapnik's bound on the true error, clipped to 1; exactly 1 (vacuous) when h >= m.
 
     ``log2_union`` (see :func:`vc_confidence`) accounts for the pixels a linear model sees having
     been chosen from the data: one class per choice of pixels.
     """
+    if m <= 0 or h <= 0 or vc_vacuous(h, m):
+        return 1.0
     return min(1.0, train_error + vc_confidence(h, m, delta, log2_union))

@@ -36,6 +36,7 @@ from pixelfit.evaluate._bounds import (
     log2_memorize_class,
     log2_tree_class,
     vc_bound,
+    vc_vacuous,
 )
 from pixelfit.models._rules import ConstantRule, LutRule, MemorizeRule
 
@@ -327,9 +328,12 @@ def generalization_bound(family: str, figures: dict, train_error: float, m: int,
         return {"error_upper": hoeffding_bound(train_error, figures["log2_class_size"], m, delta),
                 "method": "hoeffding-union (finite class, one-sided, ln(1/delta))", "delta": delta}
     if figures["vc_dim"] is not None:
-        k = figures["vc_dim"] - 1
-        return {"error_upper": vc_bound(train_error, figures["vc_dim"], m, delta, log2_comb(n_pixels, k)),
-                "method": "vapnik-vc (h = k + 1, union over the C(p, k) pixel choices, ln(4/delta))", "delta": delta}
+        h = figures["vc_dim"]
+        method = "vapnik-vc (h = k + 1, union over the C(p, k) pixel choices, ln(4/delta))"
+        if vc_vacuous(h, m):
+            method += f"; vacuous: VC dimension h >= m training patches (h = {h}, m = {m})"
+        return {"error_upper": vc_bound(train_error, h, m, delta, log2_comb(n_pixels, h - 1)),
+                "method": method, "delta": delta}
     return None
 
 
