@@ -9,7 +9,7 @@ from pixelfit.app.session import Session
 from pixelfit.app.widgets import Listens, Throttled
 from pixelfit.errors import PixelfitError
 from pixelfit.ladder import Rung
-from pixelfit.models import FAMILIES, FAMILY_ORDER
+from pixelfit.models import BEAM_MARK, BEAM_NOTE, FAMILIES, FAMILY_ORDER, is_beam
 
 #: One colour per family, so a family keeps its colour in the plot and the table.
 FAMILY_RGB = {"constant": (110, 110, 110), "lut": (46, 92, 160), "nb": (40, 150, 70), "logistic": (150, 60, 150),
@@ -44,8 +44,9 @@ def _log2h(v) -> str:
 
 #: (header, tooltip, cell text of a rung)
 COLUMNS: list[tuple[str, str, callable]] = [
-    ("rung", "family-size; ★ marks the recommended rung",
-     lambda r: ("★ " if r.recommended else "") + r.key),
+    ("rung", "family-size; ★ marks the recommended rung; (beam) a truth table found by a beam search, "
+             "not by trying every pixel set",
+     lambda r: ("★ " if r.recommended else "") + r.key + (BEAM_MARK if is_beam(r.search) else "")),
     ("size", "the family's size axis", lambda r: f"{r.size} {FAMILIES[r.family].size_name}"),
     ("log2 |H|", "log2 of the number of rules in the family's class at this size (finite classes)",
      lambda r: _log2h(r.figures["log2_class_size"])),
@@ -64,6 +65,8 @@ COLUMNS: list[tuple[str, str, callable]] = [
 
 def _tooltip(r: Rung) -> str:
     lines = list(r.notes)
+    if is_beam(r.search):
+        lines.append(BEAM_NOTE)
     vs = r.versus_smaller
     if vs:
         verdict = "significantly better" if vs["significant"] else "not significantly better"
