@@ -16,7 +16,6 @@ from pixelfit.app.session import (  # noqa: E402
     LADDER_AXES,
     Session,
     axis_position,
-    ladder_positions,
 )
 from pixelfit.app.widgets.ladder_view import AxisChooser, ErrorPlot, LadderTable  # noqa: E402
 from pixelfit.ladder import train_rung  # noqa: E402

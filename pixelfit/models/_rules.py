@@ -33,7 +33,7 @@ BEAM_NOTE = (f"(beam) truth table found by a beam search, not by trying every pi
 
 def is_beam(search: dict | None) -> bool:
     """True for a rung whose ``search`` record (summary.json) says it came from the beam search."""
-    return bool(search) and search.get("method") == "beam"
+    return search is not None and search.get("method") == "beam"
 
 
 class _BinaryRule(ClassifierMixin, BaseEstimator):
