@@ -1,5 +1,8 @@
 """Conventions stated in every summary and rule file, in one place (no dependencies)."""
 
 BOUND_CONVENTION = ("one-sided upper bound on the true error rate at 95 % confidence (delta = 0.05), "
-                    "with ln(1/delta) for the finite-class bound and ln(4/delta) inside Vapnik's bound")
+                    "with ln(1/delta) for the finite-class bound and ln(4/delta) inside Vapnik's bound; "
+                    "Vapnik's bound is vacuous (1.0) when the VC dimension h is at least the number m of "
+                    "training patches; each rung's bound holds for that rung alone, as if it were the only "
+                    "rung tried: it does not account for the recommendation choosing among the rungs")
 UNDEFINED_CONVENTION = "ratios with a zero denominator (e.g. precision with no predicted positive) are null"

@@ -16,11 +16,13 @@ def ci_text(ci) -> str:
 
 
 def ladder_table(summary: dict) -> str:
+    from pixelfit.models import BEAM_MARK, BEAM_NOTE, is_beam
+
     head = (f"{'rung':<14} {'log2|H|':>8} {'params':>7} {'train F1':>8} {'CV F1':>13} "
             f"{'held-out P [95% CI]':>21} {'held-out R [95% CI]':>21} {'F1':>6} {'bound':>6}")
     lines = [head, "-" * len(head)]
     for r in summary["rungs"]:
-        key = f"{r['family']}-{r['size']}"
+        key = f"{r['family']}-{r['size']}" + (BEAM_MARK if is_beam(r.get("search")) else "")
         cv = "-" if not r["cv"] else f"{r['cv']['f1_mean']:.3f}±{r['cv']['f1_std']:.3f}"
         t = r["test"]
         p = f"{fmt(t['precision'])}{ci_text(t['precision_ci'])}"
@@ -37,6 +39,8 @@ def ladder_table(summary: dict) -> str:
                      f"{p:>21} {rc:>21} {fmt(t['f1']):>6} {bound:>6}{sig}{mark}")
     lines.append("* significantly better than the next smaller rung of its family on held-out patches "
                  "(McNemar, p < 0.05)")
+    if any(is_beam(r.get("search")) for r in summary["rungs"]):
+        lines.append(BEAM_NOTE)
     return "\n".join(lines)
 
 

@@ -62,3 +62,26 @@ def test_bad_arguments(class_folder, tmp_path, capsys):
     assert "unknown binarize method" in capsys.readouterr().err
     assert main(["fit", str(class_folder), "--out", str(tmp_path / "x"), "--families", "magic"]) == 2
     assert "unknown family" in capsys.readouterr().err
+
+
+def test_beam_rungs_are_marked_in_the_table(tmp_path, capsys):
+    # 12x12 patches: C(144, 3) = 487,344 pixel sets are all tried, C(144, 4) = 17,610,000 are more
+    # than the exhaustive budget, so lut-4 comes from the beam search and must say so.
+    import json
+
+    import numpy as np
+
+    rng = np.random.default_rng(2)
+    imgs = rng.integers(0, 256, (120, 12, 12), dtype=np.uint8)
+    labels = np.where((imgs[:, 3, 3] > 127) ^ (imgs[:, 6, 8] > 127), "x", "y")
+    np.savez(tmp_path / "b.npz", images=imgs, labels=labels)
+    out = tmp_path / "o"
+    assert main(["fit", str(tmp_path / "b.npz"), "--out", str(out), "--families", "lut", "--sizes", "lut=3,4",
+                 "--folds", "0", "--no-rules"]) == 0
+    text = capsys.readouterr().out
+    search = {r["size"]: r["search"]["method"] for r in json.loads((out / "summary.json").read_text())["rungs"]}
+    assert search == {3: "exhaustive", 4: "beam"}
+    rows = {line.split()[0]: line for line in text.splitlines() if line.startswith("lut-")}
+    assert "(beam)" in rows["lut-4"] and "(beam)" not in rows["lut-3"]
+    footnote = [line for line in text.splitlines() if line.startswith("(beam) ")]
+    assert len(footnote) == 1 and "beam search" in footnote[0] and "4,000,000" in footnote[0]

@@ -114,14 +114,52 @@ def test_logistic_rung_agrees_with_sklearn(digits_run):
     counts = {"tp": int(np.sum(pred & y[test])), "fp": int(np.sum(pred & ~y[test])),
               "fn": int(np.sum(~pred & y[test])), "tn": int(np.sum(~pred & ~y[test]))}
     assert counts == {k: rung["test"][k] for k in counts}
-    # Reference: scikit-learn, sklearn.linear_model.LogisticRegression with an L1 penalty
-    # (l1_ratio=1, liblinear) and a large C, i.e. nearly unpenalised, fitted directly.
+    # Reference: scikit-learn's sklearn.linear_model.LogisticRegression fitted exactly as the rung
+    # fits its weights: with k = 64 on every pixel of the patch, with the rung's L2 penalty
+    # C = refit_c = 10 and scikit-learn's default solver (lbfgs), max_iter = 2000. Same problem,
+    # same solver: the weights, the scores and every held-out prediction must agree, and the counts
+    # summary.json reports must be the reference's.
+    assert SparseLogistic().refit_c == 10.0
+    support = np.arange(64)
+    np.testing.assert_array_equal(ours.support_, support)
+    Xtr = X[~test][:, support].astype(np.float64)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ConvergenceWarning)
-        ref = LogisticRegression(l1_ratio=1.0, solver="liblinear", C=1e4, max_iter=10000).fit(X[~test], y[~test])
-    ref_pred = ref.predict(X[test])
-    assert abs(np.mean(ref_pred == y[test]) - rung["test"]["accuracy"]) <= 0.01
-    assert np.mean(ref_pred == pred) >= 0.98
+        ref = LogisticRegression(C=10.0, max_iter=2000).fit(Xtr, y[~test])
+    np.testing.assert_allclose(ours.coef_[0, support], ref.coef_[0], rtol=1e-6, atol=1e-8)
+    np.testing.assert_allclose(ours.intercept_, ref.intercept_, rtol=1e-6, atol=1e-8)
+    Xte = X[test][:, support].astype(np.float64)
+    np.testing.assert_allclose(ours.decision_function(X[test]), ref.decision_function(Xte), rtol=1e-6, atol=1e-8)
+    ref_pred = ref.predict(Xte)
+    # The pixels the rung reports are those with a weight in the reference (pixels never lit in
+    # training keep a zero weight).
+    assert sorted(r * 8 + c for r, c in rung["pixels"]) == list(np.flatnonzero(ref.coef_[0]))
+    np.testing.assert_array_equal(pred, ref_pred)
+    ref_counts = {"tp": int(np.sum(ref_pred & y[test])), "fp": int(np.sum(ref_pred & ~y[test])),
+                  "fn": int(np.sum(~ref_pred & y[test])), "tn": int(np.sum(~ref_pred & ~y[test]))}
+    assert {k: rung["test"][k] for k in ref_counts} == ref_counts
+    ref_train = ref.predict(Xtr)
+    assert rung["train"]["accuracy"] == pytest.approx(float(np.mean(ref_train == y[~test])), abs=1e-12)
+
+
+def test_sparse_logistic_rung_agrees_with_sklearn(digits_run):
+    # A rung with fewer pixels than the patch: the support is the L1 path's at the C the rung
+    # chose (scikit-learn's LogisticRegression, l1_ratio = 1, liblinear, intercept_scaling = 100,
+    # as documented in SparseLogistic), and the weights are scikit-learn's L2 fit (C = refit_c,
+    # default solver) on exactly those pixels.
+    _, X, y, test = _split_arrays(digits_run)
+    Xtr = X[~test].astype(np.float64)
+    for k in (3, 8):
+        ours = SparseLogistic(k=k).fit(X[~test], y[~test])
+        assert 1 <= len(ours.support_) <= k
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", ConvergenceWarning)
+            l1 = LogisticRegression(l1_ratio=1.0, solver="liblinear", C=ours.C_, max_iter=1000, random_state=0,
+                                    intercept_scaling=100.0).fit(Xtr, y[~test])
+            ref = LogisticRegression(C=10.0, max_iter=2000).fit(Xtr[:, ours.support_], y[~test])
+        np.testing.assert_array_equal(np.flatnonzero(l1.coef_.ravel()), ours.support_)
+        np.testing.assert_allclose(ours.coef_[0, ours.support_], ref.coef_[0], rtol=1e-6, atol=1e-8)
+        np.testing.assert_array_equal(ours.predict(X[test]), ref.predict(X[test][:, ours.support_].astype(float)))
 
 
 def test_summary_figures_follow_their_formulas(digits_run):

@@ -297,6 +297,35 @@ def test_vc_confidence_crosses_one_where_burges_shows():
     assert all(a < b for a, b in itertools.pairwise(values))
 
 
+@pytest.mark.parametrize("h,m", [(1, 2), (10, 100), (99, 100), (100, 100), (201, 100), (257, 47), (65, 11),
+                                 (65, 10), (10_000, 14)])
+def test_vc_bound_vacuous_from_h_equal_m(h, m):
+    # Burges (1998), Eq. 3 and the text after it (from memory): the bound is only of use for h < l;
+    # with h >= l points a class of VC dimension h can shatter some set of l points, so the
+    # training error says nothing (common practice: report the bound as vacuous, 1). Past h = 2l
+    # the formula's ln(2l/h) is negative and the term falls as h grows; near h = 5.4 l the value
+    # under the root is negative.
+    if h < m:
+        assert vc_confidence(h, m, 0.05) == pytest.approx(_burges_eq3_confidence(h, m, 0.05), rel=1e-12)
+        assert vc_bound(0.0, h, m) == pytest.approx(min(1.0, _burges_eq3_confidence(h, m, 0.05)), rel=1e-12)
+    else:
+        assert vc_confidence(h, m, 0.05) == math.inf
+        for err in (0.0, 0.2, 0.5):
+            assert vc_bound(err, h, m) == 1.0
+            assert vc_bound(err, h, m, 0.05, log2_union=30.0) == 1.0
+
+
+def test_vc_bound_never_falls_as_h_grows():
+    # From the definition of a bound over nested classes (common practice): a larger VC dimension
+    # can never give a smaller bound at the same training error; the bug was a bound falling past
+    # h = 2m (16x16 random labels, m = 47, h = 257 gave 0.248).
+    for m in (11, 47, 300):
+        values = [vc_bound(0.0, h, m) for h in range(1, 20 * m)]
+        assert all(a <= b for a, b in itertools.pairwise(values))
+    assert vc_bound(0.0, 257, 47) == 1.0
+    assert vc_bound(0.0, 20, 5000) < 0.25
+
+
 # --- McNemar ----------------------------------------------------------------------------------
 
 def test_mcnemar_equals_statsmodels():
@@ -401,3 +430,171 @@ def test_lut_rule_fits_exactly_the_functions_of_its_class(p, k):
             np.testing.assert_array_equal(rule.predict(X), y)
             perfect.add(labels)
     assert perfect == in_class
+
+
+# --- One-standard-error rule ------------------------------------------------------------------
+# Hastie, Tibshirani & Friedman (2009), The Elements of Statistical Learning, 2nd ed., section 7.10
+# (and Fig. 7.9): pick the most parsimonious model whose CV error is no more than one standard
+# error above that of the best model; the standard error is that of the best model's CV estimate,
+# the standard deviation of its K fold values / sqrt(K) (sample standard deviation, ddof = 1; the
+# ddof from memory). For F1 (higher is better) "above the error" reads "below the best score".
+
+def _one_se_by_definition(fold_scores: list[list[float] | None], complexity: list[float]) -> int | None:
+    scored = [i for i, f in enumerate(fold_scores) if f is not None]
+    if not scored:
+        return None
+    mean = {i: sum(fold_scores[i]) / len(fold_scores[i]) for i in scored}
+    best = max(scored, key=lambda i: mean[i])
+    k = len(fold_scores[best])
+    sd = math.sqrt(sum((v - mean[best]) ** 2 for v in fold_scores[best]) / (k - 1))
+    reach = [i for i in scored if mean[i] >= mean[best] - sd / math.sqrt(k)]
+    least = min(complexity[i] for i in reach)
+    return min(i for i in reach if complexity[i] == least)  # ties in size: the earlier model
+
+
+def test_one_standard_error_choice_follows_the_definition():
+    from pixelfit.evaluate import one_standard_error_choice
+
+    rng = np.random.default_rng(11)
+    for _ in range(500):
+        n, k = int(rng.integers(1, 9)), int(rng.integers(2, 11))
+        folds = [list(rng.uniform(0.3, 0.9) + rng.normal(0, rng.uniform(0.001, 0.2), k)) for _ in range(n)]
+        folds = [None if rng.random() < 0.15 else f for f in folds]
+        complexity = [float(c) for c in rng.permutation(n)] if rng.random() < 0.7 else \
+            [float(c) for c in rng.integers(1, 4, n)]
+        means = [None if f is None else float(np.mean(f)) for f in folds]
+        sds = [None if f is None else float(np.std(f, ddof=1)) for f in folds]
+        assert one_standard_error_choice(means, sds, k, complexity) == _one_se_by_definition(folds, complexity)
+
+
+def test_recommendation_in_summary_is_the_one_standard_error_choice(tmp_path):
+    # The same definition applied to the per-fold F1 a real `pixelfit fit` writes, with the
+    # parameters as the measure of parsimony (what summary.json's conventions name).
+    import json
+
+    from pixelfit.cli import main
+
+    rng = np.random.default_rng(4)
+    imgs = rng.integers(0, 256, (240, 6, 6), dtype=np.uint8)
+    noisy = (imgs[:, 1, 1] > 127) ^ (imgs[:, 4, 3] > 127) ^ (rng.random(240) < 0.15)
+    np.savez(tmp_path / "s.npz", images=imgs, labels=np.where(noisy, "yes", "no"))
+    assert main(["fit", str(tmp_path / "s.npz"), "--out", str(tmp_path / "o"), "--families",
+                 "constant,lut,nb,tree", "--max-size", "4"]) == 0
+    s = json.loads((tmp_path / "o" / "summary.json").read_text())
+    rungs = s["rungs"]
+    pick = _one_se_by_definition([r["cv"]["f1_folds"] if r["cv"] else None for r in rungs],
+                                 [r["parameters"] for r in rungs])
+    assert pick is not None and s["recommended"] == {"family": rungs[pick]["family"], "size": rungs[pick]["size"]}
+    for r in rungs:  # the reported spread is the sample standard deviation of the folds
+        assert r["cv"]["f1_std"] == pytest.approx(float(np.std(r["cv"]["f1_folds"], ddof=1)), rel=1e-12)
+
+
+# --- Naive Bayes rung: VC dimension and bound ---------------------------------------------------
+# A Bernoulli naive Bayes over k binary pixels scores log P(1|x) - log P(0|x) = w.x + b, a linear
+# threshold function of the k bits (common knowledge), so its class lies inside the halfspaces of
+# R^k, whose VC dimension is k + 1 (Vapnik (1998), Statistical Learning Theory, Wiley; the
+# standard result for halfspaces, from memory): h = k + 1.
+
+def _separable(points: np.ndarray, labels: np.ndarray) -> bool:
+    # Feasibility of s_i (w.x_i + b) >= 1 by linear programming (scipy's linprog).
+    from scipy.optimize import linprog
+
+    s = np.where(labels, 1.0, -1.0)
+    a = -s[:, None] * np.hstack([points, np.ones((len(points), 1))])
+    res = linprog(np.zeros(points.shape[1] + 1), A_ub=a, b_ub=-np.ones(len(points)),
+                  bounds=[(None, None)] * (points.shape[1] + 1), method="highs")
+    return res.status == 0
+
+
+@pytest.mark.parametrize("k", [1, 2, 3])
+def test_halfspaces_on_k_bits_shatter_k_plus_1_points_and_no_more(k):
+    cube = np.array(list(itertools.product((0.0, 1.0), repeat=k)))
+    origin_and_units = np.vstack([np.zeros(k), np.eye(k)])  # k + 1 points
+    for labels in itertools.product((False, True), repeat=k + 1):
+        assert _separable(origin_and_units, np.array(labels))
+    for subset in itertools.combinations(range(len(cube)), k + 2):  # brute force over the cube
+        pts = cube[list(subset)]
+        assert not all(_separable(pts, np.array(lab)) for lab in itertools.product((False, True), repeat=k + 2))
+
+
+def test_nb_rung_is_linear_in_its_bits_and_reports_h_k_plus_1(rng):
+    from pixelfit.models import FAMILIES, size_figures
+
+    X = rng.random((300, 25)) < 0.4
+    y = (X[:, 3] & ~X[:, 7]) ^ (rng.random(300) < 0.1)
+    for k in (1, 3, 6, 25):
+        est = FAMILIES["nb"].make(k, 25, 0).fit(X, y)
+        proba = est.predict_proba(X)
+        logit = np.log(proba[:, 1]) - np.log(proba[:, 0])
+        bits = X[:, est.named_steps["select"].get_support()].astype(float)
+        design = np.hstack([bits, np.ones((len(X), 1))])
+        coef, *_ = np.linalg.lstsq(design, logit, rcond=None)
+        assert np.max(np.abs(design @ coef - logit)) < 1e-9  # affine in the k selected bits
+        assert size_figures("nb", est, k, 25)["vc_dim"] == k + 1
+
+
+@pytest.mark.parametrize("k,m", [(1, 200), (4, 60), (9, 10), (10, 10), (40, 10), (64, 11)])
+def test_nb_rung_bound_recomputed_by_hand(k, m):
+    # Burges (1998), Eq. 3 with h = k + 1, eta = 0.05 / C(p, k) (one class per choice of the k
+    # pixels; Bonferroni, common practice), vacuous (1) when h >= m.
+    from pixelfit.evaluate import generalization_bound
+
+    p, err, h = 64, 0.125, k + 1
+    b = generalization_bound("nb", {"log2_class_size": None, "vc_dim": h, "parameters": 2 * k + 1}, err, m, p)
+    if h >= m:
+        assert b["error_upper"] == 1.0 and "vacuous" in b["method"]
+    else:
+        eta = 0.05 / math.comb(p, k)
+        by_hand = err + math.sqrt((h * (math.log(2 * m / h) + 1) - math.log(eta / 4)) / m)
+        assert b["error_upper"] == pytest.approx(min(1.0, by_hand), rel=1e-12)
+        assert "vacuous" not in b["method"]
+
+
+# --- Threshold for a target precision or recall ---------------------------------------------------
+# Reference: scikit-learn's precision_recall_curve (predict positive when score >= threshold) and
+# a brute force over every candidate threshold (each distinct score) computing precision and
+# recall from the definition.
+
+def _brute_points(y: np.ndarray, scores: np.ndarray) -> dict[float, tuple[float | None, float]]:
+    out = {}
+    for t in np.unique(scores):
+        pred = scores >= t
+        tp = int(np.sum(pred & y))
+        out[float(t)] = (tp / int(pred.sum()) if pred.any() else None, tp / int(y.sum()))
+    return out
+
+
+def test_operating_points_and_target_search_against_brute_force():
+    from sklearn.metrics import precision_recall_curve
+
+    from pixelfit.evaluate import operating_points, threshold_for_target
+
+    rng = np.random.default_rng(8)
+    for trial in range(300):
+        n = int(rng.integers(2, 60))
+        y = rng.random(n) < rng.uniform(0.1, 0.9)
+        if not y.any():
+            continue
+        scores = np.round(np.clip(y * rng.uniform(0, 0.5) + rng.random(n) * 0.7, 0, 1), int(rng.integers(1, 4)))
+        brute = _brute_points(y, scores)
+        pts = operating_points(y, scores)
+        ref_p, ref_r, ref_t = precision_recall_curve(y, scores)
+        assert [pt["threshold"] for pt in pts] == pytest.approx(list(ref_t))
+        for pt in pts:
+            assert (pt["precision"], pt["recall"]) == pytest.approx(brute[pt["threshold"]])
+        for tp_, tr_ in ((0.5, None), (0.8, None), (0.95, None), (None, 0.5), (None, 0.9), (0.7, 0.6), (1.01, None)):
+            ok = {t: pr for t, pr in brute.items()
+                  if (tp_ is None or (pr[0] is not None and pr[0] >= tp_)) and (tr_ is None or pr[1] >= tr_)}
+            got = threshold_for_target(pts, tp_, tr_)
+            if not ok:
+                assert got is None, (trial, tp_, tr_)
+                continue
+            assert got is not None, (trial, tp_, tr_)
+            if tp_ is not None:  # the highest recall meeting the targets, then the highest precision
+                best = max((pr[1], pr[0]) for pr in ok.values())
+                assert (got["recall"], got["precision"]) == pytest.approx(best)
+            else:  # only a recall target: the highest precision meeting it
+                best = max((pr[0], pr[1]) for pr in ok.values())
+                assert (got["precision"], got["recall"]) == pytest.approx(best)
+            # the threshold returned really gives what it claims on these patches
+            assert brute[got["threshold"]] == pytest.approx((got["precision"], got["recall"]))

@@ -15,7 +15,7 @@ from pixelfit.app.widgets.check_view import DataCheckView
 from pixelfit.app.widgets.climb_panel import ClimbPanel
 from pixelfit.app.widgets.gallery import PatchGallery
 from pixelfit.app.widgets.inspector import RungInspector
-from pixelfit.app.widgets.ladder_view import ErrorPlot, LadderTable
+from pixelfit.app.widgets.ladder_view import AxisChooser, ErrorPlot, LadderTable
 from pixelfit.app.widgets.prep_panel import PixelPrep
 from pixelfit.app.widgets.source_panel import ImportReport
 from pixelfit.app.workers import LadderWorker
@@ -91,9 +91,19 @@ class MainWindow(QtWidgets.QMainWindow):
         left_scroll.setHorizontalScrollBarPolicy(QtCore.Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
 
         self.error_plot = ErrorPlot(s)
+        self.axis_chooser = AxisChooser(s)
+        plot_box = QtWidgets.QWidget()
+        plot_lay = QtWidgets.QVBoxLayout(plot_box)
+        plot_lay.setContentsMargins(0, 0, 0, 0)
+        axis_row = QtWidgets.QHBoxLayout()
+        axis_row.addWidget(QtWidgets.QLabel("x axis:"))
+        axis_row.addWidget(self.axis_chooser)
+        axis_row.addStretch(1)
+        plot_lay.addLayout(axis_row)
+        plot_lay.addWidget(self.error_plot, 1)
         self.table = LadderTable(s)
         ladder = QtWidgets.QSplitter(QtCore.Qt.Orientation.Vertical)
-        ladder.addWidget(self.error_plot)
+        ladder.addWidget(plot_box)
         ladder.addWidget(self.table)
         ladder.setSizes([380, 420])
         self.gallery = PatchGallery(s)
@@ -120,8 +130,8 @@ class MainWindow(QtWidgets.QMainWindow):
         lay.addWidget(self.strip)
         lay.addWidget(split, 1)
         self.setCentralWidget(central)
-        self.panels = [self.report, self.prep_panel, self.climb, self.error_plot, self.table, self.gallery,
-                       self.check_view, self.inspector]
+        self.panels = [self.report, self.prep_panel, self.climb, self.error_plot, self.axis_chooser, self.table,
+                       self.gallery, self.check_view, self.inspector]
         self._unsubscribe = [s.subscribe("message", self._message), s.subscribe("run", self._update_actions),
                              s.subscribe("selection", self._update_actions),
                              s.subscribe("prep", self._update_actions),

@@ -20,6 +20,7 @@ Events (name: when)
 ``map``         the kind of per-pixel map shown changed
 ``target``      the target precision changed
 ``check``       the data check's suspect labels changed (after a climb)
+``axis``        the x axis of the ladder plot changed
 ``message``     a line for the status area: ``(text, is_error)``
 
 The data check itself comes with every prepared set (:attr:`Prepared.check`, the same core call
@@ -28,6 +29,7 @@ as ``pixelfit check``), so ``prep`` announces its new findings too.
 
 from __future__ import annotations
 
+import math
 import os
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -45,11 +47,56 @@ from pixelfit.outputs import error_curves
 from pixelfit.rulefile import load_rule, save_rung
 
 EVENTS = ("dataset", "prep", "gallery", "settings", "run", "progress", "rungs", "selection", "threshold",
-          "map", "target", "check", "message")
+          "map", "target", "check", "axis", "message")
 
 #: Per-pixel maps the inspector can show: rung maps first, then maps of the training data.
 MAP_KINDS = {"native": "model's own weights", "permutation": "permutation (held-out)",
              "mean_difference": "data: lit-rate difference", "mutual_information": "data: mutual information"}
+
+#: The x axes the ladder plot offers: name -> (label, the rung's number on that axis given the
+#: patch's pixel count; None leaves the rung out of the plot). Another axis is one more entry
+#: reading another number of the rung (a cost figure such as flash bytes, when rungs carry one).
+LADDER_AXES: dict[str, tuple[str, Callable[[Rung, int], float | None]]] = {
+    "pixels": ("pixels read", lambda r, p: float(p if r.pixels is None else len(r.pixels))),
+    "parameters": ("parameters", lambda r, p: float(r.figures["parameters"])),
+}
+#: Horizontal distance between rungs of different families that fall on one x value, in units of
+#: the plot's log2 spacing: enough to click each on its own.
+COINCIDENT_OFFSET = 0.12
+
+
+def axis_position(value: float) -> float:
+    """Horizontal position of a value on the ladder plot: log2 spacing, 0 one step left of 1."""
+    return math.log2(value) if value >= 1 else -1.0
+
+
+def ladder_positions(rungs: list[Rung], axis: str, n_pixels: int) -> dict[str, tuple[float, float]]:
+    """Per rung key: (its value on ``axis``, its horizontal position in the plot).
+
+    Rungs of different families with the same value are spread side by side, in family order,
+    COINCIDENT_OFFSET apart and centred on the value, so each can be told apart and clicked.
+    """
+    value_of = LADDER_AXES[axis][1]
+    values = {r.key: value_of(r, n_pixels) for r in rungs}
+    groups: dict[float, list[Rung]] = {}
+    for r in rungs:
+        v = values[r.key]
+        if v is not None:
+            groups.setdefault(v, []).append(r)
+    out: dict[str, tuple[float, float]] = {}
+    for v, members in groups.items():
+        members = sorted(members, key=lambda r: (FAMILY_ORDER.index(r.family), r.size))
+        for i, r in enumerate(members):
+            out[r.key] = (v, axis_position(v) + (i - (len(members) - 1) / 2) * COINCIDENT_OFFSET)
+    return out
+
+
+def nearest_point(points: list[tuple[str, float, float]], x: float, y: float) -> str | None:
+    """Key of the point (key, x, y) nearest to (x, y), in the caller's (screen) units."""
+    if not points:
+        return None
+    return min(points, key=lambda p: (p[1] - x) ** 2 + (p[2] - y) ** 2)[0]
+
 
 #: A small ladder that trains in seconds on a laptop; the user widens it.
 DEFAULT_FAMILIES = ("constant", "lut", "nb", "logistic", "tree")
@@ -92,6 +139,7 @@ class Session:
         self.threshold = 0.5
         self.map_kind = "native"
         self.target_precision: float | None = 0.95
+        self.ladder_axis = "pixels"
         self.saved_paths: list[Path] = []
         self._data_maps: tuple[Prepared, dict[str, np.ndarray]] | None = None  # maps of one prepared set
         self._at_threshold: tuple | None = None  # (rung, threshold, prepared set, metrics) last computed
@@ -341,6 +389,19 @@ class Session:
 
     def rung(self, key: str) -> Rung | None:
         return next((r for r in self.rungs if r.key == key), None)
+
+    def set_ladder_axis(self, axis: str) -> None:
+        if axis not in LADDER_AXES:
+            raise KeyError(axis)
+        if axis != self.ladder_axis:
+            self.ladder_axis = axis
+            self._emit("axis")
+
+    def ladder_positions(self) -> dict[str, tuple[float, float]]:
+        """Per rung key: (value on the chosen x axis, horizontal position); see :func:`ladder_positions`."""
+        if not self.rungs or self.run_prep is None:
+            return {}
+        return ladder_positions(self.rungs, self.ladder_axis, self.run_prep.n_pixels)
 
     def error_curves(self) -> dict:
         """Train, CV and held-out error and the bound against size, per family (see report)."""

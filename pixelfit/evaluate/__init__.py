@@ -6,6 +6,7 @@ from pixelfit.evaluate._bounds import (
     hoeffding_bound,
     vc_bound,
     vc_confidence,
+    vc_vacuous,
 )
 from pixelfit.evaluate._compare import (
     mcnemar,
@@ -28,7 +29,7 @@ from pixelfit.evaluate._metrics import (
 from pixelfit.models import log2_comb, log2_lut_class, log2_memorize_class, log2_tree_class  # noqa: E402, I001
 
 __all__ = [
-    "consistent_sample_size", "generalization_bound", "hoeffding_bound", "vc_bound", "vc_confidence",
+    "consistent_sample_size", "generalization_bound", "hoeffding_bound", "vc_bound", "vc_confidence", "vc_vacuous",
     "mcnemar", "mcnemar_from_counts", "one_standard_error_choice", "operating_points", "threshold_for_target",
     "mean_difference_map", "mutual_information_map", "permutation_map", "clopper_pearson_interval", "confusion",
     "detection_metrics", "error_rate", "metrics_from_counts", "wilson_interval", "log2_comb", "log2_lut_class",

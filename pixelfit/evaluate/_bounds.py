@@ -37,18 +37,30 @@ def vc_confidence(h: int, m: int, delta: float = 0.05, log2_union: float = 0.0) 
 
     ``log2_union`` spreads delta over 2^log2_union classes (a union bound): ln(delta/4) becomes
     ln(delta/4) - log2_union * ln 2.
+
+    The term is only meaningful for h < m: past h = 2m it *falls* as h grows (ln(2m/h) < 0) and
+    near h = 5.4 m the value under the root turns negative. With h >= m a class of VC dimension h
+    can fit any labelling of the m patches, so nothing is learned about the true error: the term
+    is infinite (the bound is vacuous), see :func:`vc_vacuous`.
     """
-    if m <= 0 or h <= 0:
+    if m <= 0 or h <= 0 or vc_vacuous(h, m):
         return float("inf")
     return math.sqrt((h * (math.log(2.0 * m / h) + 1.0) - math.log(delta / 4.0) + log2_union * LN2) / m)
 
 
+def vc_vacuous(h: int, m: int) -> bool:
+    """True when Vapnik's bound says nothing: the VC dimension h is at least the m training patches."""
+    return h >= m
+
+
 def vc_bound(train_error: float, h: int, m: int, delta: float = 0.05, log2_union: float = 0.0) -> float:
-    """Vapnik's bound on the true error, clipped to 1.
+    """Vapnik's bound on the true error, clipped to 1; exactly 1 (vacuous) when h >= m.
 
     ``log2_union`` (see :func:`vc_confidence`) accounts for the pixels a linear model sees having
     been chosen from the data: one class per choice of pixels.
     """
+    if m <= 0 or h <= 0 or vc_vacuous(h, m):
+        return 1.0
     return min(1.0, train_error + vc_confidence(h, m, delta, log2_union))
 
 
@@ -59,7 +71,10 @@ def generalization_bound(family: str, figures: dict, train_error: float, m: int,
         return {"error_upper": hoeffding_bound(train_error, figures["log2_class_size"], m, delta),
                 "method": "hoeffding-union (finite class, one-sided, ln(1/delta))", "delta": delta}
     if figures["vc_dim"] is not None:
-        k = figures["vc_dim"] - 1
-        return {"error_upper": vc_bound(train_error, figures["vc_dim"], m, delta, log2_comb(n_pixels, k)),
-                "method": "vapnik-vc (h = k + 1, union over the C(p, k) pixel choices, ln(4/delta))", "delta": delta}
+        h = figures["vc_dim"]
+        method = "vapnik-vc (h = k + 1, union over the C(p, k) pixel choices, ln(4/delta))"
+        if vc_vacuous(h, m):
+            method += f"; vacuous: VC dimension h >= m training patches (h = {h}, m = {m})"
+        return {"error_upper": vc_bound(train_error, h, m, delta, log2_comb(n_pixels, h - 1)),
+                "method": method, "delta": delta}
     return None

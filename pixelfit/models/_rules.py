@@ -24,6 +24,16 @@ from pixelfit.models.lut_engine import (
 #: Default most pixel sets scored exhaustively per k; beyond it the search is a beam.
 #: C(100, 4) = 3,921,225 fits under it, so k <= 4 is exhaustive for patches of up to 10x10.
 MAX_EXHAUSTIVE = 4_000_000
+#: What the CLI and the window put after the name of a truth-table rung found by the beam search,
+#: and the footnote that explains the mark.
+BEAM_MARK = " (beam)"
+BEAM_NOTE = (f"(beam) truth table found by a beam search, not by trying every pixel set (more than "
+             f"{MAX_EXHAUSTIVE:,} of that size): it may not be the best table of its size on the training patches")
+
+
+def is_beam(search: dict | None) -> bool:
+    """True for a rung whose ``search`` record (summary.json) says it came from the beam search."""
+    return search is not None and search.get("method") == "beam"
 
 
 class _BinaryRule(ClassifierMixin, BaseEstimator):

@@ -5,11 +5,11 @@ from __future__ import annotations
 import math
 
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
-from pixelfit.app.session import Session
+from pixelfit.app.session import LADDER_AXES, Session, axis_position, nearest_point
 from pixelfit.app.widgets import Listens, Throttled
 from pixelfit.errors import PixelfitError
 from pixelfit.ladder import Rung
-from pixelfit.models import FAMILIES, FAMILY_ORDER
+from pixelfit.models import BEAM_MARK, BEAM_NOTE, FAMILIES, FAMILY_ORDER, is_beam
 
 #: One colour per family, so a family keeps its colour in the plot and the table.
 FAMILY_RGB = {"constant": (110, 110, 110), "lut": (46, 92, 160), "nb": (40, 150, 70), "logistic": (150, 60, 150),
@@ -44,8 +44,9 @@ def _log2h(v) -> str:
 
 #: (header, tooltip, cell text of a rung)
 COLUMNS: list[tuple[str, str, callable]] = [
-    ("rung", "family-size; ★ marks the recommended rung",
-     lambda r: ("★ " if r.recommended else "") + r.key),
+    ("rung", "family-size; ★ marks the recommended rung; (beam) a truth table found by a beam search, "
+             "not by trying every pixel set",
+     lambda r: ("★ " if r.recommended else "") + r.key + (BEAM_MARK if is_beam(r.search) else "")),
     ("size", "the family's size axis", lambda r: f"{r.size} {FAMILIES[r.family].size_name}"),
     ("log2 |H|", "log2 of the number of rules in the family's class at this size (finite classes)",
      lambda r: _log2h(r.figures["log2_class_size"])),
@@ -64,6 +65,8 @@ COLUMNS: list[tuple[str, str, callable]] = [
 
 def _tooltip(r: Rung) -> str:
     lines = list(r.notes)
+    if is_beam(r.search):
+        lines.append(BEAM_NOTE)
     vs = r.versus_smaller
     if vs:
         verdict = "significantly better" if vs["significant"] else "not significantly better"
@@ -200,9 +203,47 @@ def _point_error(r: Rung) -> float:
     return r.cv["error_mean"] if r.cv else 1 - r.test["accuracy"]
 
 
-def size_position(size: int) -> float:
-    """Horizontal position of a size: log2 spacing, with size 0 (the constant) one step left of 1."""
-    return math.log2(size) if size >= 1 else -1.0
+def _kind_error(r: Rung, kind: str) -> float | None:
+    """A rung's train, CV or held-out error rate, or its bound (the curves of the plot)."""
+    if kind == "train":
+        return 1 - r.train["accuracy"]
+    if kind == "test":
+        return 1 - r.test["accuracy"]
+    if kind == "cv":
+        return None if r.cv is None else r.cv["error_mean"]
+    return None if r.bound is None else r.bound["error_upper"]
+
+
+def power_of_two_ticks(values: list[float]) -> list[tuple[float, str]]:
+    """Ticks of a log2-spaced axis covering ``values``: 0 (left of 1) where present, then powers of two."""
+    ticks = [(axis_position(0.0), "0")] if any(v < 1 for v in values) else []
+    big = [v for v in values if v >= 1]
+    if big:
+        lo, hi = math.floor(math.log2(min(big))), math.ceil(math.log2(max(big)))
+        step = max(1, math.ceil((hi - lo + 1) / 12))  # at most about a dozen labels
+        ticks += [(float(e), f"{2**e:g}") for e in range(lo, hi + 1, step)]
+    return ticks
+
+
+class AxisChooser(Listens, QtWidgets.QComboBox):
+    """Chooses the ladder plot's x axis (session.ladder_axis)."""
+
+    def __init__(self, session: Session, parent: QtWidgets.QWidget | None = None):
+        super().__init__(parent)
+        self.session = session
+        for name, (label, _) in LADDER_AXES.items():
+            self.addItem(label, name)
+        self.setToolTip("what the ladder plot puts along its x axis")
+        self.currentIndexChanged.connect(lambda i: self.session.set_ladder_axis(self.itemData(i)))
+        self.listen(session, "axis", self._show)
+        self._show()
+
+    def _show(self) -> None:
+        i = self.findData(self.session.ladder_axis)
+        if i != self.currentIndex():
+            self.blockSignals(True)
+            self.setCurrentIndex(i)
+            self.blockSignals(False)
 
 
 class ErrorPlot(Listens, pg.PlotWidget):
@@ -219,7 +260,7 @@ class ErrorPlot(Listens, pg.PlotWidget):
         # A fixed width for the error-rate ticks: sized to its texts, the axis would lay the plot
         # out again (and paint it once more) whenever the range moves while rungs arrive.
         pi.getAxis("left").setWidth(LEFT_AXIS_WIDTH)
-        pi.setLabel("bottom", "size (log2 spacing)")
+        pi.setLabel("bottom", self._axis_label())
         pi.showGrid(x=True, y=True, alpha=0.25)
         # Each axis draws its ticks and its half of the grid (translucent lines across the whole
         # plot); replayed on every paint that cost about 6 ms per axis. Cached as a pixmap, a
@@ -248,11 +289,27 @@ class ErrorPlot(Listens, pg.PlotWidget):
         self.listen(session, "rungs", self._redraw_later.request)
         self.listen(session, "run", self._run_changed)
         self.listen(session, "selection", self._selection_changed)
+        self.listen(session, "axis", self.redraw)
         self.redraw()
 
-    def _clicked(self, _item, points, _ev=None) -> None:
-        if len(points):
+    def _axis_label(self) -> str:
+        return f"{LADDER_AXES[self.session.ladder_axis][0]} (log2 spacing)"
+
+    def _clicked(self, _item, points, ev=None) -> None:
+        """Select the rung whose point is nearest the click (in screen distance), not merely one
+        of the points under it."""
+        if not len(points):
+            return
+        if ev is None:
             self.session.select(points[0].data())
+            return
+        vb = self.getPlotItem().getViewBox()
+        where = ev.scenePos()
+        spots = []
+        for p in self.points.points():
+            q = vb.mapViewToScene(p.pos())
+            spots.append((p.data(), q.x(), q.y()))
+        self.session.select(nearest_point(spots, where.x(), where.y()))
 
     def _curve(self, family: str, kind: str) -> pg.PlotCurveItem:
         item = self._curves.get((family, kind))
@@ -304,34 +361,40 @@ class ErrorPlot(Listens, pg.PlotWidget):
         self._stale = False
         self._redraw_later.cancel()
         pi = self.getPlotItem()
-        curves = self.session.error_curves()
-        sizes = set()
+        pos = self.session.ladder_positions()
+        rungs = [r for r in self.session.rungs if r.key in pos]
+        by_family: dict[str, list[Rung]] = {}
+        for r in rungs:
+            by_family.setdefault(r.family, []).append(r)
         for key, item in self._curves.items():
-            if key[0] not in curves and self._changed(key, ((), ())):
+            if key[0] not in by_family and self._changed(key, ((), ())):
                 item.setData([], [])
-        for fam, kinds in curves.items():
-            for kind, pts in kinds.items():
-                sizes.update(s for s, _ in pts)
-                xs = tuple(size_position(s) for s, e in pts if e is not None)
-                ys = tuple(min(1.0, e) for s, e in pts if e is not None)
+        shown = []
+        for fam, members in by_family.items():
+            members = sorted(members, key=lambda r: (pos[r.key][1], r.size))
+            for kind in KIND_STYLE:
+                pts = [(pos[r.key][1], _kind_error(r, kind)) for r in members]
+                xs = tuple(x for x, e in pts if e is not None)
+                ys = tuple(min(1.0, e) for x, e in pts if e is not None)
+                shown.extend(ys)
                 if (xs or (fam, kind) in self._curves) and self._changed((fam, kind), (xs, ys)):
                     self._curve(fam, kind).setData(list(xs), list(ys))
-        rungs = self.session.rungs
-        spots = tuple((r.key, size_position(r.size), min(1.0, _point_error(r)), r.recommended) for r in rungs)
+        spots = tuple((r.key, pos[r.key][1], min(1.0, _point_error(r)), r.recommended) for r in rungs)
         if self._changed("points", spots):
             self.points.setData(
                 x=[p[1] for p in spots], y=[p[2] for p in spots], data=[p[0] for p in spots],
                 brush=[pg.mkBrush(*FAMILY_RGB.get(r.family, (0, 0, 0))) for r in rungs], pen=pg.mkPen("w"),
                 symbol=["star" if p[3] else "o" for p in spots], size=[16 if p[3] else 9 for p in spots])
-        shown = [e for kinds in curves.values() for pts in kinds.values() for _, e in pts if e is not None]
         top = min(1.0, max(shown, default=1.0) * 1.1 + 0.02)
         if self._changed("y", top):
             pi.setYRange(0, top, padding=0)
-        ticks = [(size_position(s), str(s)) for s in sorted(sizes)]
-        if self._changed("x", tuple(ticks)):
+        if self._changed("label", self._axis_label()):
+            pi.setLabel("bottom", self._axis_label())
+        ticks = power_of_two_ticks(sorted({v for v, _ in pos.values()}))
+        xs = [x for _, x in pos.values()]
+        if self._changed("x", (tuple(ticks), min(xs, default=0.0), max(xs, default=0.0))):
             pi.getAxis("bottom").setTicks([ticks])
-            if sizes:
-                xs = [t[0] for t in ticks]
+            if xs:
                 pi.setXRange(min(xs) - 0.3, max(xs) + 0.3, padding=0)
         self._mark()
 
@@ -346,6 +409,9 @@ class ErrorPlot(Listens, pg.PlotWidget):
         if r is None:
             self.marker.setData([])
             return
-        y = _point_error(r)
-        self.marker.setData([{"pos": (size_position(r.size), min(1.0, y))}])
+        at = self.session.ladder_positions().get(r.key)
+        if at is None:
+            self.marker.setData([])
+            return
+        self.marker.setData([{"pos": (at[1], min(1.0, _point_error(r)))}])
 
