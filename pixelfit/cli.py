@@ -127,11 +127,49 @@ def ladder_table(summary: dict) -> str:
     return "\n".join(lines)
 
 
+def spec_table(summary: dict) -> str:
+    """Per rung: the threshold chosen for the spec on the training part, and its held-out result."""
+    sp = summary["spec"]
+    conf = f"{sp['confidence']:.0%}"
+    head = (f"{'rung':<14} {'flash':>6} {'threshold':>9} {'on':>5} {'CV P':>6} {'CV R':>6} "
+            f"{'tp':>5} {'fp':>5} {'fn':>5} {'tn':>5} {'P (' + conf + ' low)':>16} {'R (' + conf + ' low)':>16}  verdict")
+    lines = [head, "-" * len(head)]
+    for r in summary["rungs"]:
+        e = r["spec"]
+        if e is None:
+            continue
+        t = e["test"]
+        flash = "-" if not r["cost"] else str(r["cost"]["flash_bytes"])
+        p = f"{_fmt(t['precision'])} ({_fmt(t['precision_lower'])})"
+        rc = f"{_fmt(t['recall'])} ({_fmt(t['recall_lower'])})"
+        lines.append(f"{r['family'] + '-' + str(r['size']):<14} {flash:>6} {e['threshold']:>9.4g} {e['chosen_on']:>5} "
+                     f"{_fmt(e['cv']['precision']):>6} {_fmt(e['cv']['recall']):>6} {t['tp']:>5} {t['fp']:>5} "
+                     f"{t['fn']:>5} {t['tn']:>5} {p:>16} {rc:>16}  {e['verdict']}")
+    return "\n".join(lines)
+
+
+def answer_text(summary: dict) -> str:
+    """The answer to the spec, the last thing ``fit`` prints."""
+    a = summary["answer"]
+    sp = summary["spec"]
+    terms = ", ".join(f"{k} >= {sp[k]:g}" for k in ("precision", "recall") if sp[k] is not None)
+    budget = "" if sp["budget_bytes"] is None else f", at most {sp['budget_bytes']} flash bytes"
+    head = f"answer to {terms}{budget} at {sp['confidence']:.0%} confidence: "
+    head += a["rung"] if a["rung"] else "none"
+    head += f" ({a['verdict']})" if a["verdict"] else ""
+    return f"{head}\n  {a['reason']}"
+
+
 def cmd_fit(args) -> int:
+    from pixelfit.evaluate import apply_spec, parse_spec
     from pixelfit.ladder import LadderCancelled, conclude, prepare, run_ladder
     from pixelfit.models import parse_families, parse_size_overrides, plan_rungs
     from pixelfit.report import write_fit_outputs
 
+    if args.spec is None and (args.confidence is not None or args.budget_bytes is not None):
+        raise PixelfitError("--confidence and --budget-bytes go with --spec, e.g. --spec \"precision>=0.90,recall>=0.85\"")
+    spec = None if args.spec is None else parse_spec(args.spec, 0.95 if args.confidence is None else args.confidence,
+                                                      args.budget_bytes)
     ds = load_dataset(resolve_dataset_path(args.path))
     binarizer = Binarizer.parse(args.binarize, invert=args.invert)
     prep = prepare(ds, binarizer, args.positive, args.test_fraction, args.seed)
@@ -144,7 +182,7 @@ def cmd_fit(args) -> int:
     except OSError as exc:
         raise PixelfitError(f"--out {args.out}: cannot create the folder ({exc.strerror or exc})") from None
     settings = {"families": families, "max_size": args.max_size, "sizes": args.sizes, "folds": args.folds,
-                "seed": args.seed, "target_precision": args.target_precision, "target_recall": args.target_recall}
+                "seed": args.seed, "spec": args.spec}
     h, w = prep.shape
     print(f"{ds.source}: {len(ds)} patches of {h}x{w}; detecting {prep.positive!r} against {prep.negative!r}; "
           f"{len(prep.y_train)} train / {len(prep.y_test)} held-out"
@@ -155,8 +193,7 @@ def cmd_fit(args) -> int:
     done_rungs = []
     cancelled = False
     try:
-        for pr in run_ladder(prep, rungs_plan, args.folds, args.seed, target_precision=args.target_precision,
-                             target_recall=args.target_recall):
+        for pr in run_ladder(prep, rungs_plan, args.folds, args.seed):
             if pr.rung is not None:
                 done_rungs.append(pr.rung)
             bar.update(pr.done, pr.total, pr.message, pr.rung is not None)
@@ -165,9 +202,10 @@ def cmd_fit(args) -> int:
     finally:
         bar.close()
     recommended = conclude(done_rungs, prep.y_test) if done_rungs else None
+    answer = apply_spec(done_rungs, prep.y_train, prep.y_test, spec)
     if args.rules and done_rungs:
         _write_rules(args.out, prep, done_rungs)
-    summary = write_fit_outputs(args.out, prep, done_rungs, recommended, settings, cancelled)
+    summary = write_fit_outputs(args.out, prep, done_rungs, recommended, settings, cancelled, spec, answer)
     print(ladder_table(summary))
     if recommended is not None:
         print(f"recommended: {recommended.key} (smallest rung within one standard error of the best CV F1)")
@@ -175,6 +213,9 @@ def cmd_fit(args) -> int:
         print("no recommendation: it needs cross-validation (--folds of at least 2)")
     print(f"wrote {args.out}/summary.json, summary.csv, split.csv, ladder.png, heatmaps/"
           f"{', rules/' if args.rules and done_rungs else ''}")
+    if spec is not None:
+        print(spec_table(summary))
+        print(answer_text(summary))
     if cancelled:
         print(f"interrupted: {len(done_rungs)} of {len(rungs_plan)} rungs finished and were written", file=sys.stderr)
         return EXIT_INCOMPLETE
@@ -240,7 +281,19 @@ def cmd_show(args) -> int:
         print("truth table (pixels " + ", ".join(f"({r},{c})" for r, c in px) + "; bit j = j-th pixel):")
         ones = [i for i, v in enumerate(d["model"]["table"]) if v]
         print(f"  positive for pattern codes: {', '.join(map(str, ones)) or 'none'}")
-    print("metrics:")
+    print(f"operating threshold: {rule.operating_threshold:.6g}, chosen on {rule.operating_chosen_on} "
+          "(a patch is positive when its score is above it)")
+    sp = ev.get("spec")
+    if isinstance(sp, dict) and isinstance(sp.get("test"), dict):
+        t = sp["test"]
+        print(f"spec verdict: {sp.get('verdict')} (held-out at threshold {sp.get('threshold')}: tp {t.get('tp')}, "
+              f"fp {t.get('fp')}, fn {t.get('fn')}, tn {t.get('tn')}; precision {_fmt(t.get('precision'))} "
+              f"(lower {_fmt(t.get('precision_lower'))}), recall {_fmt(t.get('recall'))} "
+              f"(lower {_fmt(t.get('recall_lower'))}))")
+    cost = ev.get("cost")
+    if isinstance(cost, dict):
+        print("firmware cost: " + ", ".join(f"{k} {cost.get(k)}" for k in ("flash_bytes", "ram_bytes", "ops")))
+    print("metrics (at the rule's own decision, score above 0.5):")
     print(_metrics_line("train", ev.get("train")))
     cv = ev.get("cv")
     print(f"  {'CV':<9} " + ("-" if not cv else f"F1 {cv['f1_mean']:.3f} ± {cv['f1_std']:.3f} over {cv['folds']} folds"))
@@ -294,8 +347,10 @@ def cmd_apply(args) -> int:
     else:
         sys.stdout.write(buf.getvalue())
     info = sys.stderr if not args.csv else sys.stdout
-    print(f"applied {rule.family}-{rule.size} to {len(names)} patches: {int(pred.sum())} called {rule.positive!r}"
-          + (f" (threshold {args.threshold:g})" if args.threshold is not None else ""), file=info)
+    used = (f"threshold {args.threshold:g}, given" if args.threshold is not None else
+            f"threshold {rule.operating_threshold:g}, the rule's, chosen on {rule.operating_chosen_on}")
+    print(f"applied {rule.family}-{rule.size} to {len(names)} patches: {int(pred.sum())} called {rule.positive!r} "
+          f"(score above {used})", file=info)
     for s in ds.skipped:
         print(f"  skipped {s.path}: {s.reason}", file=info)
     if labeled:
@@ -377,8 +432,12 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--max-size", type=int, metavar="K", help="largest size on every family's axis")
     f.add_argument("--sizes", action="append", metavar="FAMILY=LIST", help="one family's sizes, e.g. lut=1,2,3,5")
     f.add_argument("--folds", type=int, default=5, help="cross-validation folds on the training part; 0 turns it off")
-    f.add_argument("--target-precision", type=float, metavar="P", help="find the threshold meeting this precision")
-    f.add_argument("--target-recall", type=float, metavar="R", help="find the threshold meeting this recall")
+    f.add_argument("--spec", metavar="SPEC", help="what the detector must reach on unseen patches, e.g. "
+                   "\"precision>=0.90,recall>=0.85\" (either may be left out): each rung's threshold is chosen on "
+                   "the training part, judged on the held-out part, and the cheapest rung that meets it is the answer")
+    f.add_argument("--confidence", type=float, metavar="C", help="confidence of the held-out lower bounds (0.95)")
+    f.add_argument("--budget-bytes", type=int, metavar="N", help="rungs whose firmware takes more flash bytes "
+                   "than this are over budget")
     f.add_argument("--no-rules", dest="rules", action="store_false", help="do not write rules/<family>-<size>.json")
     f.set_defaults(func=cmd_fit)
 
@@ -394,8 +453,8 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("rule")
     a.add_argument("path", help="folder (any layout, labels optional), image file or .npz")
     a.add_argument("--csv", metavar="OUT", help="write the rows here instead of standard output")
-    a.add_argument("--threshold", type=float, metavar="T", help="call positive when score >= T "
-                   "(default: the rule's own decision)")
+    a.add_argument("--threshold", type=float, metavar="T", help="call positive when score > T "
+                   "(default: the operating threshold stored in the rule)")
     a.add_argument("--split", metavar="SPLIT_CSV", help="a split.csv from `pixelfit fit`; with --subset, apply to "
                    "that part only")
     a.add_argument("--subset", choices=("train", "test"), default="test", help="part of --split to use (test)")
