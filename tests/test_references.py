@@ -164,6 +164,18 @@ def test_clopper_pearson_equals_statsmodels():
     assert clopper_pearson_interval(0, 0) is None
 
 
+def test_one_sided_lower_bound_equals_statsmodels():
+    # Reference: statsmodels, statsmodels.stats.proportion.proportion_confint(method="beta"): the
+    # lower end of the two-sided interval at alpha = 2 (1 - confidence) is the one-sided lower
+    # bound at that confidence.
+    from pixelfit.evaluate import lower_bound
+
+    for conf in (0.8, 0.9, 0.95, 0.99):
+        for x, n in _count_pairs():
+            slo, _ = proportion_confint(x, n, alpha=2 * (1 - conf), method="beta")
+            assert lower_bound(x, n, conf) == pytest.approx(slo, abs=1e-12), (x, n, conf)
+
+
 def test_clopper_pearson_published_and_closed_form():
     # Newcombe (1998), "Two-sided confidence intervals for the single proportion: comparison of
     # seven methods", Statistics in Medicine 17, 857-872, Table I, exact (Clopper-Pearson) method,
