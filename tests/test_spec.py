@@ -228,3 +228,58 @@ def test_candidate_thresholds_are_all_distinct_scores():
     pts = operating_points(y, s)
     assert [p["threshold"] for p in pts] == [0.0, 0.1, 0.5]  # 0.9 calls nothing positive: left out
     assert list(itertools.chain.from_iterable((p["tp"], p["fp"]) for p in pts)) == [2, 2, 2, 1, 1, 0]
+
+
+# ---- the operating threshold that ships, and the one decision rule -------------------------------
+
+@pytest.fixture(scope="module")
+def bottle_tree4():
+    from pixelfit.cli import resolve_dataset_path
+    from pixelfit.data import Binarizer, load_dataset
+    from pixelfit.ladder import prepare, train_rung
+
+    prep = prepare(load_dataset(resolve_dataset_path("bottle-caps")), Binarizer.parse("otsu"))
+    return prep, train_rung(prep, "tree", 4, folds=3)
+
+
+def test_tie_at_half_is_one_decision_everywhere(bottle_tree4, tmp_path):
+    """A held-out patch scoring exactly 0.5: negative for the rung, the rule file, apply and the C vectors."""
+    from pixelfit.evaluate import detection_metrics
+    from pixelfit.rulefile import export_c, load_rule, save_rung
+
+    prep, rung = bottle_tree4
+    ties = rung.test_scores == 0.5
+    assert ties.any() and not rung.test_pred[ties].any()  # the tie exists here, and the rule calls it negative
+    at_half = detection_metrics(prep.y_test, rung.test_scores > 0.5)
+    assert at_half["recall"] == rung.test["recall"] and at_half["precision"] == rung.test["precision"]
+    rule = load_rule(save_rung(tmp_path / "t.json", prep, rung))
+    assert np.array_equal(rule.predict(prep.X_test), rung.test_pred)
+    _, vectors = export_c(rule, tmp_path / "t.h", prep.X_test[ties])
+    expected = vectors.read_text().split("_vector_expected")[1]
+    assert "1" not in expected.split("{")[1].split("}")[0]
+
+
+def test_operating_threshold_round_trips_and_apply_uses_it(bottle_tree4, tmp_path, capsys):
+    from pixelfit.rulefile import load_rule, save_rung
+
+    prep, rung = bottle_tree4
+    path = save_rung(tmp_path / "t.json", prep, rung, {"threshold": 0.3, "chosen_on": "held-out"})
+    rule = load_rule(path)
+    assert (rule.operating_threshold, rule.operating_chosen_on) == (0.3, "held-out")
+    s = rule.scores(prep.X_test)
+    assert np.array_equal(rule.predict(prep.X_test), s > 0.3) and (s > 0.3).sum() > rung.test_pred.sum()
+    # apply on the folder: predictions follow the stored threshold (score > 0.3).
+    out = tmp_path / "a.csv"
+    assert main(["apply", str(path), "bottle-caps", "--csv", str(out)]) == 0
+    assert "score above threshold 0.3, the rule's, chosen on held-out" in capsys.readouterr().out
+    import csv
+    rows = list(csv.DictReader(open(out)))
+    assert all((float(r["score"]) > 0.3) == (r["prediction"] == rule.positive) for r in rows)
+    # A schema-1 file (no operating entry) still loads, with the rule's own decision.
+    doc = json.loads(path.read_text())
+    doc["schema_version"] = 1
+    del doc["operating"]
+    old = tmp_path / "old.json"
+    old.write_text(json.dumps(doc))
+    r1 = load_rule(old)
+    assert r1.operating_threshold == 0.5 and np.array_equal(r1.predict(prep.X_test), rung.test_pred)
