@@ -22,9 +22,9 @@ from threadpoolctl import threadpool_limits
 from pixelfit.data import Binarizer, Dataset, binary_target, choose_positive, fingerprint, stratified_split
 from pixelfit.errors import TrainingError
 from pixelfit.evaluate._compare import mcnemar, one_standard_error_choice
-from pixelfit.evaluate._spec import cost_order, operating_points
 from pixelfit.evaluate._importance import mean_difference_map, mutual_information_map, permutation_map
 from pixelfit.evaluate._metrics import detection_metrics, error_rate
+from pixelfit.evaluate._spec import cost_order, operating_points
 from pixelfit.models import (
     FAMILIES,
     LutRule,
@@ -167,7 +167,7 @@ class Rung:
             "recommended": self.recommended,
             "versus_smaller": self.versus_smaller,
             "operating": {**self.operating_point,
-                          "test_points": None if self.operating is None else self.operating["test_points"]},
+                          "test_points": self.operating["test_points"] if self.operating else None},
             "cost": self.cost,
             "spec": self.spec,
             "rule_file": self.rule_file,
@@ -356,8 +356,8 @@ def conclude(rungs: list[Rung], y_test: np.ndarray) -> Rung | None:
     """Mark the recommended rung (one-standard-error rule on CV F1) and compare neighbours.
 
     "Smallest" is by flash bytes when every rung's firmware cost is known, else by parameters
-    (:func:`pixelfit.evaluate.cost_order`). Each rung is compared with the next smaller rung of its family on the held-out patches with
-    McNemar's test. Returns the recommended rung, or None without cross-validation.
+    (:func:`pixelfit.evaluate._spec.cost_order`). Each rung is compared with the next smaller rung
+    of its family on the held-out patches with McNemar's test. Returns the recommended rung, or None without cross-validation.
     """
     for r in rungs:
         r.recommended = False

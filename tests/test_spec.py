@@ -15,7 +15,6 @@ from pixelfit.errors import PixelfitError
 from pixelfit.evaluate import Spec, answer, lower_bound, parse_spec, patches_needed, verdict
 from pixelfit.evaluate._spec import choose_threshold, held_out_result, operating_points
 
-
 # ---- parsing --------------------------------------------------------------------------------
 
 def test_parse_spec_terms():
@@ -283,3 +282,21 @@ def test_operating_threshold_round_trips_and_apply_uses_it(bottle_tree4, tmp_pat
     old.write_text(json.dumps(doc))
     r1 = load_rule(old)
     assert r1.operating_threshold == 0.5 and np.array_equal(r1.predict(prep.X_test), rung.test_pred)
+
+
+def test_window_tie_rows_agree(bottle_tree4):
+    """The inspector's "held-out" and "held-out @ 0.500" rows are one decision (tree-4 on bottle-caps)."""
+    from pixelfit.app.session import Session
+
+    prep, rung = bottle_tree4
+    s = Session()
+    s.run_prep = prep
+    s.add_rung(rung)
+    s.select(rung.key)
+    assert s.threshold == 0.5 and s.threshold_chosen_on == "default"
+    m = s.threshold_metrics()
+    assert (m["tp"], m["fp"], m["fn"], m["tn"]) == tuple(rung.test[k] for k in ("tp", "fp", "fn", "tn"))
+    # With a spec the window starts the rung at the threshold chosen on CV scores, as the CLI does.
+    assert s.set_spec(0.7, 0.7, 0.95, None)
+    assert s.threshold == rung.spec["threshold"] and s.threshold_chosen_on == "cv"
+    assert s.answer is not None and s.answer["verdict"] in ("meets", "plausible", "fails")

@@ -99,7 +99,8 @@ def _body(rule: Rule, ident: str, P: str) -> tuple[list[str], list[str], bool]:
         tables.append(f"static const double {ident}_weights[{P}_PIXELS] = {{\n{_rows(w, 4, _double)}\n}};")
         code.append(f"    double z = {_double(rule._bias)};\n    unsigned i;\n"
                     f"    for (i = 0u; i < {P}_PIXELS; ++i) {{\n        if (patch[i] != 0u) {{\n"
-                    f"            z += {ident}_weights[i];\n        }}\n    }}\n    return z > {_double(rule.decision_logit)} ? 1 : 0;")
+                    f"            z += {ident}_weights[i];\n        }}\n    }}\n"
+                    f"    return z > {_double(rule.decision_logit)} ? 1 : 0;")
     elif f == "nb":
         px = rule._pixels
         k = len(px)
@@ -146,11 +147,13 @@ def header_text(rule: Rule, ident: str) -> str:
     b = rule.binarizer
     doc = rule.doc
     # evaluation is free-form in the schema: take only numbers from it, never text into the C file.
-    ev = doc.get("evaluation") or {}
-    spec = ev.get("spec") if isinstance(ev, dict) else None
+    ev = doc.get("evaluation")
+    ev = ev if isinstance(ev, dict) else {}
+    spec = ev.get("spec")
+    spec = spec if isinstance(spec, dict) else {}
     # The held-out figures at the shipped threshold: the spec's when the rule ships the spec's threshold.
-    at_spec = isinstance(spec, dict) and spec.get("threshold") == rule.operating_threshold
-    test = spec.get("test") if at_spec else ev.get("test") if isinstance(ev, dict) else None
+    at_spec = spec.get("threshold") == rule.operating_threshold
+    test = spec.get("test") if at_spec else ev.get("test")
     test = test if isinstance(test, dict) else {}
     if at_spec and "n" not in test:
         test = {**test, "n": sum(v for k, v in test.items() if k in ("tp", "fp", "fn", "tn") and isinstance(v, int))}

@@ -272,6 +272,13 @@ class Rule:
     family, size, shape, positive, negative, binarizer
     """
 
+    # Scores the stored decisions are derived from (set by _build for the families that have them).
+    _score: float
+    _scores: np.ndarray
+    _mscores: np.ndarray
+    _default_score: float
+    _tscore: np.ndarray
+
     def __init__(self, doc: dict):
         self.doc = doc
         m = doc["model"]
