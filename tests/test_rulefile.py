@@ -77,7 +77,7 @@ def _mutate(doc, path, value=KeyError):
 
 @pytest.mark.parametrize("path,value,match", [
     (("format",), "other-tool", "format"),
-    (("schema_version",), 2, "newer"),
+    (("schema_version",), 3, "newer"),
     (("model",), KeyError, "model"),
     (("patch_shape",), KeyError, "patch_shape"),
     (("model", "table"), [0, 1], "model/table"),
