@@ -139,6 +139,7 @@ def test_full_flow(qtbot, window, class_folder, tmp_path, monkeypatch, answers):
     from pixelfit.evaluate import Spec, answer, evaluate_spec
 
     w.climb.spec_precision.setValue(0.6)
+    assert s.spec == Spec(0.6, None, 0.95, None)  # the command line's default confidence
     w.climb.spec_recall.setValue(0.5)
     w.climb.spec_confidence.setValue(0.9)
     assert s.spec == Spec(0.6, 0.5, 0.9, None)

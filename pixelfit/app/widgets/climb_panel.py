@@ -42,6 +42,7 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
         self.spec_confidence.setRange(0.5, 0.999)
         self.spec_confidence.setDecimals(3)
         self.spec_confidence.setSingleStep(0.01)
+        self.spec_confidence.setValue(0.95)  # the command line's default
         self.spec_confidence.setToolTip("Confidence of the held-out lower bounds (one-sided Clopper-Pearson)")
         self.spec_budget = QtWidgets.QSpinBox()
         self.spec_budget.setRange(0, 10_000_000)
@@ -132,7 +133,7 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
         for spin, value in ((self.max_size, s.max_size or 0), (self.folds, s.folds),
                             (self.spec_precision, (spec.precision or 0.0) if spec else 0.0),
                             (self.spec_recall, (spec.recall or 0.0) if spec else 0.0),
-                            (self.spec_confidence, spec.confidence if spec else self.spec_confidence.value() or 0.95),
+                            (self.spec_confidence, spec.confidence if spec else self.spec_confidence.value()),
                             (self.spec_budget, (spec.budget_bytes or 0) if spec else self.spec_budget.value())):
             spin.blockSignals(True)
             spin.setValue(value)
