@@ -15,7 +15,7 @@ from pixelfit import __version__
 from pixelfit.data import Binarizer, Dataset, choose_positive, load_dataset
 from pixelfit.demo import resolve_dataset_path as _resolve
 from pixelfit.errors import PixelfitError
-from pixelfit.text import fmt, ladder_table, metrics_line, pixel_grid
+from pixelfit.text import answer_text, fmt, ladder_table, metrics_line, pixel_grid, spec_table
 
 EXIT_OK, EXIT_INCOMPLETE, EXIT_BAD_INPUT = 0, 1, 2
 
@@ -156,10 +156,15 @@ class _ProgressBar:
 
 
 def cmd_fit(args) -> int:
+    from pixelfit.evaluate import apply_spec, parse_spec
     from pixelfit.ladder import LadderCancelled, conclude, prepare, run_ladder, suspect_labels
     from pixelfit.models import parse_families, parse_size_overrides, plan_rungs
     from pixelfit.outputs import write_fit_outputs
 
+    if args.spec is None and (args.confidence is not None or args.budget_bytes is not None):
+        raise PixelfitError("--confidence and --budget-bytes go with --spec, e.g. --spec \"precision>=0.90,recall>=0.85\"")
+    spec = None if args.spec is None else parse_spec(args.spec, 0.95 if args.confidence is None else args.confidence,
+                                                      args.budget_bytes)
     ds = load_dataset(resolve_dataset_path(args.path))
     binarizer = Binarizer.parse(args.binarize, invert=args.invert)
     prep = prepare(ds, binarizer, args.positive, args.test_fraction, args.seed, args.split)
@@ -172,8 +177,7 @@ def cmd_fit(args) -> int:
     except OSError as exc:
         raise PixelfitError(f"--out {args.out}: cannot create the folder ({exc.strerror or exc})") from None
     settings = {"families": families, "max_size": args.max_size, "sizes": args.sizes, "folds": args.folds,
-                "split": args.split,
-                "seed": args.seed, "target_precision": args.target_precision, "target_recall": args.target_recall}
+                "split": args.split, "seed": args.seed, "spec": args.spec}
     h, w = prep.shape
     check = prep.check
     assert check is not None
@@ -194,8 +198,7 @@ def cmd_fit(args) -> int:
     done_rungs = []
     cancelled = False
     try:
-        for pr in run_ladder(prep, rungs_plan, args.folds, args.seed, target_precision=args.target_precision,
-                             target_recall=args.target_recall):
+        for pr in run_ladder(prep, rungs_plan, args.folds, args.seed):
             if pr.rung is not None:
                 done_rungs.append(pr.rung)
             bar.update(pr.done, pr.total, pr.message, pr.rung is not None)
@@ -205,9 +208,10 @@ def cmd_fit(args) -> int:
         bar.close()
     recommended = conclude(done_rungs, prep.y_test) if done_rungs else None
     check.suspects = suspect_labels(prep, done_rungs)
+    answer = apply_spec(done_rungs, prep.y_train, prep.y_test, spec)
     if args.rules and done_rungs:
         _write_rules(args.out, prep, done_rungs)
-    summary = write_fit_outputs(args.out, prep, done_rungs, recommended, settings, cancelled)
+    summary = write_fit_outputs(args.out, prep, done_rungs, recommended, settings, cancelled, spec, answer)
     print(ladder_table(summary))
     leak_free = [(f"{r['family']}-{r['size']}", r["held_out_without_leaked"]) for r in summary["rungs"]
                  if r.get("held_out_without_leaked")]
@@ -225,6 +229,9 @@ def cmd_fit(args) -> int:
         print("no recommendation: it needs cross-validation (--folds of at least 2)")
     print(f"wrote {args.out}/summary.json, summary.csv, split.csv, check.csv, ladder.png, heatmaps/"
           f"{', rules/' if args.rules and done_rungs else ''}")
+    if spec is not None:
+        print(spec_table(summary))
+        print(answer_text(summary))
     if cancelled:
         print(f"interrupted: {len(done_rungs)} of {len(rungs_plan)} rungs finished and were written", file=sys.stderr)
         return EXIT_INCOMPLETE
@@ -264,7 +271,19 @@ def cmd_show(args) -> int:
         print("truth table (pixels " + ", ".join(f"({r},{c})" for r, c in px) + "; bit j = j-th pixel):")
         ones = [i for i, v in enumerate(d["model"]["table"]) if v]
         print(f"  positive for pattern codes: {', '.join(map(str, ones)) or 'none'}")
-    print("metrics:")
+    print(f"operating threshold: {rule.operating_threshold:.6g}, chosen on {rule.operating_chosen_on} "
+          "(a patch is positive when its score is above it)")
+    sp = ev.get("spec")
+    if isinstance(sp, dict) and isinstance(sp.get("test"), dict):
+        t = sp["test"]
+        print(f"spec verdict: {sp.get('verdict')} (held-out at threshold {sp.get('threshold')}: tp {t.get('tp')}, "
+              f"fp {t.get('fp')}, fn {t.get('fn')}, tn {t.get('tn')}; precision {fmt(t.get('precision'))} "
+              f"(lower {fmt(t.get('precision_lower'))}), recall {fmt(t.get('recall'))} "
+              f"(lower {fmt(t.get('recall_lower'))}))")
+    cost = ev.get("cost")
+    if isinstance(cost, dict):
+        print("firmware cost: " + ", ".join(f"{k} {cost.get(k)}" for k in ("flash_bytes", "ram_bytes", "ops")))
+    print("metrics (at the rule's own decision, score above 0.5):")
     print(metrics_line("train", ev.get("train")))
     cv = ev.get("cv")
     print(f"  {'CV':<9} " + ("-" if not cv else f"F1 {cv['f1_mean']:.3f} ± {cv['f1_std']:.3f} over {cv['folds']} folds"))
@@ -318,8 +337,10 @@ def cmd_apply(args) -> int:
     else:
         sys.stdout.write(buf.getvalue())
     info = sys.stderr if not args.csv else sys.stdout
-    print(f"applied {rule.family}-{rule.size} to {len(names)} patches: {int(pred.sum())} called {rule.positive!r}"
-          + (f" (threshold {args.threshold:g})" if args.threshold is not None else ""), file=info)
+    used = (f"threshold {args.threshold:g}, given" if args.threshold is not None else
+            f"threshold {rule.operating_threshold:g}, the rule's, chosen on {rule.operating_chosen_on}")
+    print(f"applied {rule.family}-{rule.size} to {len(names)} patches: {int(pred.sum())} called {rule.positive!r} "
+          f"(score above {used})", file=info)
     for s in ds.skipped:
         print(f"  skipped {s.path}: {s.reason}", file=info)
     if labeled:
@@ -414,8 +435,12 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--max-size", type=int, metavar="K", help="largest size on every family's axis")
     f.add_argument("--sizes", action="append", metavar="FAMILY=LIST", help="one family's sizes, e.g. lut=1,2,3,5")
     f.add_argument("--folds", type=int, default=5, help="cross-validation folds on the training part; 0 turns it off")
-    f.add_argument("--target-precision", type=float, metavar="P", help="find the threshold meeting this precision")
-    f.add_argument("--target-recall", type=float, metavar="R", help="find the threshold meeting this recall")
+    f.add_argument("--spec", metavar="SPEC", help="what the detector must reach on unseen patches, e.g. "
+                   "\"precision>=0.90,recall>=0.85\" (either may be left out): each rung's threshold is chosen on "
+                   "the training part, judged on the held-out part, and the cheapest rung that meets it is the answer")
+    f.add_argument("--confidence", type=float, metavar="C", help="confidence of the held-out lower bounds (0.95)")
+    f.add_argument("--budget-bytes", type=int, metavar="N", help="rungs whose firmware takes more flash bytes "
+                   "than this are over budget")
     f.add_argument("--no-rules", dest="rules", action="store_false", help="do not write rules/<family>-<size>.json")
     f.set_defaults(func=cmd_fit)
 
@@ -431,8 +456,8 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("rule")
     a.add_argument("path", help="folder (any layout, labels optional), image file or .npz")
     a.add_argument("--csv", metavar="OUT", help="write the rows here instead of standard output")
-    a.add_argument("--threshold", type=float, metavar="T", help="call positive when score >= T "
-                   "(default: the rule's own decision)")
+    a.add_argument("--threshold", type=float, metavar="T", help="call positive when score > T "
+                   "(default: the operating threshold stored in the rule)")
     a.add_argument("--split", metavar="SPLIT_CSV", help="a split.csv from `pixelfit fit`; with --subset, apply to "
                    "that part only")
     a.add_argument("--subset", choices=("train", "test"), default="test", help="part of --split to use (test)")

@@ -35,6 +35,7 @@ from pixelfit.data import (
 )
 from pixelfit.errors import TrainingError
 from pixelfit.evaluate import (
+    cost_order,
     detection_metrics,
     error_rate,
     generalization_bound,
@@ -44,7 +45,6 @@ from pixelfit.evaluate import (
     one_standard_error_choice,
     operating_points,
     permutation_map,
-    threshold_for_target,
 )
 from pixelfit.models import (
     FAMILIES,
@@ -170,6 +170,13 @@ class Rung:
     operating: dict | None
     search: dict | None = None
     oof_scores: np.ndarray | None = None  # out-of-fold scores of the training patches, when every one has one
+    #: Firmware cost ``{flash_bytes, ram_bytes, ops}``; None until a cost is computed for the rung.
+    cost: dict | None = None
+    #: Scores the operating threshold is chosen on (out-of-fold CV scores, or training scores), and which.
+    choice_scores: np.ndarray | None = None
+    chosen_on: str | None = None
+    #: The rung's entry for a spec (see :func:`pixelfit.evaluate.apply_spec`); None without one.
+    spec: dict | None = None
     notes: list[str] = field(default_factory=list)
     seconds: float = 0.0
     recommended: bool = False
@@ -183,6 +190,13 @@ class Rung:
     @property
     def scored(self) -> bool:
         return self.test_scores is not None
+
+    @property
+    def operating_point(self) -> dict:
+        """``{threshold, chosen_on}``: the spec's threshold (chosen on CV or training scores), else 0.5."""
+        if self.spec is not None:
+            return {"threshold": self.spec["threshold"], "chosen_on": self.spec["chosen_on"]}
+        return {"threshold": 0.5, "chosen_on": "default"}
 
     def summary(self, shape: tuple[int, int]) -> dict:
         """The JSON-ready entry of ``summary.json``."""
@@ -200,7 +214,10 @@ class Rung:
             "bound": self.bound,
             "recommended": self.recommended,
             "versus_smaller": self.versus_smaller,
-            "operating": self.operating,
+            "operating": {**self.operating_point,
+                          "test_points": self.operating["test_points"] if self.operating else None},
+            "cost": self.cost,
+            "spec": self.spec,
             "rule_file": self.rule_file,
             "pixels": None if self.pixels is None else [[i // w, i % w] for i in self.pixels],
             "notes": self.notes,
@@ -286,10 +303,9 @@ def _score(est, X) -> np.ndarray | None:
 
 
 def train_rung(prep: Prepared, family: str, size: int, folds: int = 5, seed: int = 0,
-               cancel: CancelFn | None = None, target_precision: float | None = None,
-               target_recall: float | None = None) -> Rung:
+               cancel: CancelFn | None = None) -> Rung:
     """Fit one rung on the training part, cross-validate it there, measure it on the held-out part."""
-    steps = _rung_steps(prep, family, size, folds, seed, cancel, target_precision, target_recall)
+    steps = _rung_steps(prep, family, size, folds, seed, cancel)
     while True:
         try:
             next(steps)
@@ -298,8 +314,7 @@ def train_rung(prep: Prepared, family: str, size: int, folds: int = 5, seed: int
 
 
 def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
-                cancel: CancelFn | None, target_precision: float | None,
-                target_recall: float | None) -> Generator[str, None, Rung]:
+                cancel: CancelFn | None) -> Generator[str, None, Rung]:
     """:func:`train_rung` as a generator: yields a message after each fit, returns the rung."""
     fam = FAMILIES[family]
     t0 = time.perf_counter()
@@ -307,7 +322,7 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     X, y = prep.X_train, prep.y_train
     template = fam.make(size, prep.n_pixels, seed)
     cv = None
-    oof = np.full(len(y), np.nan) if fam.scored else None
+    oof = np.full(len(y), np.nan)
     if folds:
         f1s, errs = [], []
         groups = prep.train_groups
@@ -323,10 +338,9 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
             fold = detection_metrics(y[va], pred)
             f1s.append(fold["f1"] or 0.0)
             errs.append(1.0 - fold["accuracy"])
-            if oof is not None:
-                s = _score(est, X[va])
-                if s is not None:
-                    oof[va] = s
+            s = _score(est, X[va])
+            if s is not None:
+                oof[va] = s
             yield f"{family}-{size}: fold {i + 1} of {folds}"
         cv = {"folds": folds, "f1_mean": float(np.mean(f1s)), "f1_std": float(np.std(f1s, ddof=1)),
               "f1_folds": [float(v) for v in f1s], "error_mean": float(np.mean(errs)),
@@ -346,33 +360,25 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
         "native": native_importance(family, est, X, y, prep.shape),
         "permutation": permutation_map(est, prep.X_test, prep.y_test, prep.shape, pixels=used, seed=seed),
     }
-    test_scores = _score(est, prep.X_test) if fam.scored else None
-    operating = None
+    # Every family gives a score (the constant's is its training rate); see pixelfit.evaluate._spec
+    # for the one decision rule, score > threshold.
+    test_scores = _score(est, prep.X_test)
+    operating = choice = chosen_on = None
     if test_scores is not None:
-        choose_on = "cv" if folds and oof is not None and not np.isnan(oof).any() else "train"
-        basis = oof if choose_on == "cv" and oof is not None else _scores_of(est, X)
-        target = None
-        if target_precision is not None or target_recall is not None:
-            pick = threshold_for_target(operating_points(y, basis), target_precision, target_recall)
-            if pick is not None:
-                held = detection_metrics(prep.y_test, test_scores >= pick["threshold"])
-                target = {"threshold": pick["threshold"], "chosen_on": choose_on,
-                          "chosen_precision": pick["precision"], "chosen_recall": pick["recall"],
-                          "test_precision": held["precision"], "test_recall": held["recall"]}
-            else:
-                target = {"threshold": None, "chosen_on": choose_on, "met": False}
-        operating = {"test_points": operating_points(prep.y_test, test_scores), "target": target}
+        chosen_on = "cv" if folds and not np.isnan(oof).any() else "train"
+        choice = oof if chosen_on == "cv" else _scores_of(est, X)
+        operating = {"test_points": operating_points(prep.y_test, test_scores)}
     search = None
     if family == "lut":
         search = {"method": est.search_, "candidates": est.n_candidates_}
     oof_ok = oof is not None and folds and not np.isnan(oof).any()
     return Rung(family, size, est, train, test, cv, figures, bound, used, importance, test_pred, test_scores,
-                operating, search, oof if oof_ok else None, notes, time.perf_counter() - t0)
+                operating, search, oof if oof_ok else None, notes=notes, seconds=time.perf_counter() - t0,
+                choice_scores=choice, chosen_on=chosen_on)
 
 
 def run_ladder(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, seed: int = 0,
-               cancel: CancelFn | None = None, target_precision: float | None = None,
-               target_recall: float | None = None) -> Iterator[Progress]:
+               cancel: CancelFn | None = None) -> Iterator[Progress]:
     """Train every rung in order, yielding a :class:`Progress` per step.
 
     Raises :class:`LadderCancelled` between steps when ``cancel()`` returns True. Call
@@ -381,10 +387,10 @@ def run_ladder(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, see
     # Ladder matrices are small: threads in BLAS only add overhead (and stall badly on a busy
     # machine), so numeric libraries run single-threaded while the ladder trains.
     with threadpool_limits(limits=1):
-        yield from _run(prep, rungs, folds, seed, cancel, target_precision, target_recall)
+        yield from _run(prep, rungs, folds, seed, cancel)
 
 
-def _run(prep, rungs, folds, seed, cancel, target_precision, target_recall) -> Iterator[Progress]:
+def _run(prep, rungs, folds, seed, cancel) -> Iterator[Progress]:
     folds, fold_note = effective_folds(prep.y_train, folds, prep.train_groups)
     notes = [n for n in (fold_note, identical_note(prep.X_train)) if n]
     per_rung = folds + 1
@@ -393,7 +399,7 @@ def _run(prep, rungs, folds, seed, cancel, target_precision, target_recall) -> I
     for note in notes:
         yield Progress(done, total, note)
     for family, size in rungs:
-        steps = _rung_steps(prep, family, size, folds, seed, cancel, target_precision, target_recall)
+        steps = _rung_steps(prep, family, size, folds, seed, cancel)
         while True:
             try:
                 message = next(steps)
@@ -456,8 +462,9 @@ def leak_free_test(prep: Prepared, rung: Rung) -> dict | None:
 def conclude(rungs: list[Rung], y_test: np.ndarray) -> Rung | None:
     """Mark the recommended rung (one-standard-error rule on CV F1) and compare neighbours.
 
-    Each rung is compared with the next smaller rung of its family on the held-out patches with
-    McNemar's test. Returns the recommended rung, or None without cross-validation.
+    "Smallest" is by flash bytes when every rung's firmware cost is known, else by parameters
+    (:func:`pixelfit.evaluate._spec.cost_order`). Each rung is compared with the next smaller rung
+    of its family on the held-out patches with McNemar's test. Returns the recommended rung, or None without cross-validation.
     """
     for r in rungs:
         r.recommended = False
@@ -471,9 +478,11 @@ def conclude(rungs: list[Rung], y_test: np.ndarray) -> Rung | None:
                                 "significant": bool(better and test["p_value"] < 0.05)}
         prev[r.family] = r
     folds = max((r.cv["folds"] for r in rungs if r.cv), default=0)
+    _, order = cost_order(rungs)
+    rank = {i: pos for pos, i in enumerate(order)}
     pick = one_standard_error_choice([r.cv["f1_mean"] if r.cv else None for r in rungs],
                                      [r.cv["f1_std"] if r.cv else None for r in rungs], folds,
-                                     [r.figures["parameters"] for r in rungs])
+                                     [rank[i] for i in range(len(rungs))])
     if pick is None:
         return None
     rungs[pick].recommended = True

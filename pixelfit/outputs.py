@@ -14,6 +14,7 @@ from pixelfit import __version__
 from pixelfit._atomic import write_bytes, write_json, write_text
 from pixelfit.conventions import BOUND_CONVENTION, UNDEFINED_CONVENTION
 from pixelfit.data import check_csv_rows, raw_fingerprint
+from pixelfit.evaluate import Spec
 from pixelfit.ladder import Prepared, Rung, leak_free_test
 from pixelfit.models import FAMILIES
 from pixelfit.plots import heatmap_png, ladder_png
@@ -44,8 +45,15 @@ def split_summary(prep: Prepared) -> dict:
             "n_train": int(len(prep.y_train)), "n_test": int(len(prep.y_test)), "file": "split.csv"}
 
 
+SPEC_CONVENTION = ("each rung's threshold is chosen on its out-of-fold CV scores (training scores when CV is off): "
+                   "among thresholds meeting every target there, the largest smallest margin (one target: the "
+                   "most of the other measure); else the smallest largest shortfall. A patch is positive when "
+                   "its score is above the threshold. Held-out lower bounds are one-sided Clopper-Pearson at the "
+                   "spec's confidence; extra_test_patches scales the held-out counts at their observed rates")
+
+
 def build_summary(prep: Prepared, rungs: list[Rung], recommended: Rung | None, settings: dict,
-                  cancelled: bool = False) -> dict:
+                  cancelled: bool = False, spec: Spec | None = None, answer: dict | None = None) -> dict:
     return {
         "format": SUMMARY_FORMAT,
         "version": SUMMARY_VERSION,
@@ -56,8 +64,12 @@ def build_summary(prep: Prepared, rungs: list[Rung], recommended: Rung | None, s
         "split": split_summary(prep),
         "settings": settings,
         "conventions": {"bound": BOUND_CONVENTION, "undefined": UNDEFINED_CONVENTION,
-                        "recommendation": "smallest rung (fewest parameters) within one standard error "
-                                          "of the best cross-validated F1; the held-out set is never used"},
+                        "recommendation": "smallest rung (fewest flash bytes, or fewest parameters while the firmware "
+                                          "cost is unknown) within one standard error of the best "
+                                          "cross-validated F1; the held-out set is never used",
+                        "spec": SPEC_CONVENTION},
+        "spec": None if spec is None else spec.to_dict(),
+        "answer": answer,
         "cancelled": cancelled,
         "rungs": [{**r.summary(prep.shape), "held_out_without_leaked": leak_free_test(prep, r)} for r in rungs],
         "recommended": None if recommended is None else {"family": recommended.family, "size": recommended.size},
@@ -66,7 +78,11 @@ def build_summary(prep: Prepared, rungs: list[Rung], recommended: Rung | None, s
 
 CSV_COLUMNS = ["family", "size", "search", "parameters", "log2_class_size", "vc_dim", "train_f1", "cv_f1_mean",
                "cv_f1_std", "test_precision", "test_precision_lo", "test_precision_hi", "test_recall",
-               "test_recall_lo", "test_recall_hi", "test_f1", "test_mcc", "bound", "recommended"]
+               "test_recall_lo", "test_recall_hi", "test_f1", "test_mcc", "bound", "recommended",
+               "flash_bytes", "ram_bytes", "ops", "operating_threshold", "operating_chosen_on",
+               "spec_threshold", "spec_chosen_on", "spec_cv_precision", "spec_cv_recall", "spec_test_tp",
+               "spec_test_fp", "spec_test_fn", "spec_test_tn", "spec_test_precision", "spec_test_recall",
+               "spec_test_precision_lower", "spec_test_recall_lower", "spec_verdict"]
 
 
 def _csv_value(v) -> str:
@@ -89,6 +105,14 @@ def summary_csv(summary: dict) -> str:
                r["vc_dim"], r["train"]["f1"], (r["cv"] or {}).get("f1_mean"), (r["cv"] or {}).get("f1_std"),
                t["precision"], pci[0], pci[1], t["recall"], rci[0], rci[1], t["f1"], t["mcc"],
                (r["bound"] or {}).get("error_upper"), r["recommended"]]
+        cost = r["cost"] or {}
+        row += [cost.get("flash_bytes"), cost.get("ram_bytes"), cost.get("ops"), r["operating"]["threshold"],
+                r["operating"]["chosen_on"]]
+        sp = r["spec"] or {}
+        cv, st = sp.get("cv") or {}, sp.get("test") or {}
+        row += [sp.get("threshold"), sp.get("chosen_on"), cv.get("precision"), cv.get("recall")]
+        row += [st.get(k) for k in ("tp", "fp", "fn", "tn", "precision", "recall", "precision_lower", "recall_lower")]
+        row.append(sp.get("verdict"))
         w.writerow([_csv_value(v) for v in row])
     return buf.getvalue()
 
@@ -157,7 +181,8 @@ def error_curves(rungs: list[Rung]) -> dict[str, dict[str, list[tuple[float, flo
 
 
 def write_fit_outputs(out: str | Path, prep: Prepared, rungs: list[Rung], recommended: Rung | None,
-                      settings: dict, cancelled: bool = False) -> dict:
+                      settings: dict, cancelled: bool = False, spec: Spec | None = None,
+                      answer: dict | None = None) -> dict:
     """Write every output of a ladder run into ``out``; returns the summary written."""
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -178,7 +203,7 @@ def write_fit_outputs(out: str | Path, prep: Prepared, rungs: list[Rung], recomm
         np.save(buf, values.astype(np.float64), allow_pickle=False)
         write_bytes(heat / f"data-{name}.npy", buf.getvalue())
         write_bytes(heat / f"data-{name}.png", heatmap_png(values))
-    summary = build_summary(prep, rungs, recommended, settings, cancelled)
+    summary = build_summary(prep, rungs, recommended, settings, cancelled, spec, answer)
     write_json(out / "summary.json", summary)
     write_text(out / "summary.csv", summary_csv(summary))
     write_text(out / "split.csv", split_csv(prep))

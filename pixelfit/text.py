@@ -44,6 +44,39 @@ def ladder_table(summary: dict) -> str:
     return "\n".join(lines)
 
 
+def spec_table(summary: dict) -> str:
+    """Per rung: the threshold chosen for the spec on the training part, and its held-out result."""
+    sp = summary["spec"]
+    conf = f"{sp['confidence']:.0%}"
+    head = (f"{'rung':<14} {'flash':>6} {'threshold':>9} {'on':>5} {'CV P':>6} {'CV R':>6} "
+            f"{'tp':>5} {'fp':>5} {'fn':>5} {'tn':>5} {'P (' + conf + ' low)':>16} {'R (' + conf + ' low)':>16}  verdict")
+    lines = [head, "-" * len(head)]
+    for r in summary["rungs"]:
+        e = r["spec"]
+        if e is None:
+            continue
+        t = e["test"]
+        flash = "-" if not r["cost"] else str(r["cost"]["flash_bytes"])
+        p = f"{fmt(t['precision'])} ({fmt(t['precision_lower'])})"
+        rc = f"{fmt(t['recall'])} ({fmt(t['recall_lower'])})"
+        lines.append(f"{r['family'] + '-' + str(r['size']):<14} {flash:>6} {e['threshold']:>9.4g} {e['chosen_on']:>5} "
+                     f"{fmt(e['cv']['precision']):>6} {fmt(e['cv']['recall']):>6} {t['tp']:>5} {t['fp']:>5} "
+                     f"{t['fn']:>5} {t['tn']:>5} {p:>16} {rc:>16}  {e['verdict']}")
+    return "\n".join(lines)
+
+
+def answer_text(summary: dict) -> str:
+    """The answer to the spec, the last thing ``fit`` prints."""
+    a = summary["answer"]
+    sp = summary["spec"]
+    terms = ", ".join(f"{k} >= {sp[k]:g}" for k in ("precision", "recall") if sp[k] is not None)
+    budget = "" if sp["budget_bytes"] is None else f", at most {sp['budget_bytes']} flash bytes"
+    head = f"answer to {terms}{budget} at {sp['confidence']:.0%} confidence: "
+    head += a["rung"] if a["rung"] else "none"
+    head += f" ({a['verdict']})" if a["verdict"] else ""
+    return f"{head}\n  {a['reason']}"
+
+
 def pixel_grid(shape: tuple[int, int], used: list[int] | None, signs: dict[int, str] | None = None) -> str:
     """The patch as ASCII: '#' (or the sign) for a pixel the rule reads, '.' for one it ignores."""
     h, w = shape

@@ -2,8 +2,6 @@
 its data, not on pixels (except the one row-major check, which is about pixels by design)."""
 from __future__ import annotations
 
-import math
-
 import numpy as np
 import pytest
 
@@ -120,32 +118,48 @@ def test_full_flow(qtbot, window, class_folder, tmp_path, monkeypatch, answers):
     assert w.inspector.title.text().startswith("<b>lut-2</b>")
     assert w.inspector.pixmap.values.shape == (8, 8)
 
-    # The threshold slider: held-out metrics follow, computed by the core.
+    # The threshold slider: held-out metrics follow, computed by the core (score above the threshold).
     w.inspector.slider.setValue(int(0.2 * SLIDER_STEPS))
-    assert s.threshold == pytest.approx(0.2)
-    expect = detection_metrics(s.run_prep.y_test, s.selected.test_scores >= 0.2)
+    assert s.threshold == pytest.approx(0.2) and s.threshold_chosen_on == "held-out"
+    expect = detection_metrics(s.run_prep.y_test, s.selected.test_scores > 0.2)
     assert s.threshold_metrics() == expect
     assert w.inspector.confusion.item(0, 0).text() == str(expect["tp"])
     assert w.inspector.pr_table.item(3, 2).text() == f"{expect['f1']:.3f}"
     fp, fn = s.misses()
     assert len(fp) == expect["fp"] and len(fn) == expect["fn"]
     assert w.inspector.fp_list.count() == min(len(fp), 48)
-    w.inspector.slider.setValue(0)
-    assert s.threshold_metrics()["recall"] == 1.0  # everything is called positive at threshold 0
+    # The threshold is kept per rung: another rung starts at its own, and this one's comes back.
+    w.table.selectRow(next(i for i, r in enumerate(s.rungs) if r.key == "tree-1"))
+    assert s.threshold == 0.5 and s.threshold_chosen_on == "default"
+    w.table.selectRow(row)
+    assert s.threshold == pytest.approx(0.2) and s.threshold_chosen_on == "held-out"
 
-    # A target precision: the point shown is the core's choice on the held-out operating points,
-    # and "move there" puts the threshold on it.
-    from pixelfit.evaluate import threshold_for_target
+    # The spec, in the climb panel: the same core call as `pixelfit fit --spec` judges every rung,
+    # and the answer is stated, marked in the table and the plot.
+    from pixelfit.evaluate import Spec, answer, evaluate_spec
 
-    points = s.selected.operating["test_points"]
-    target = math.floor(max(p["precision"] for p in points) * 100) / 100  # reachable, on the spin's grid
-    w.inspector.target.setValue(target)
-    assert s.target_precision == target
-    pt = threshold_for_target(points, target, None)
-    assert pt is not None and s.target_point() == pt
+    w.climb.spec_precision.setValue(0.6)
+    assert s.spec == Spec(0.6, None, 0.95, None)  # the command line's default confidence
+    w.climb.spec_recall.setValue(0.5)
+    w.climb.spec_confidence.setValue(0.9)
+    assert s.spec == Spec(0.6, 0.5, 0.9, None)
+    for r in s.rungs:
+        assert r.spec == evaluate_spec(r.choice_scores, s.run_prep.y_train, r.chosen_on, r.test_scores,
+                                       s.run_prep.y_test, s.spec, r.cost)
+    assert s.answer == answer(s.rungs, s.spec)
+    shown = s.answer["rung"] or "none"
+    assert f"answer: {shown}" in w.climb.answer.text()
+    if s.answer["rung"] is not None:
+        i = [r.key for r in s.rungs].index(s.answer["rung"])
+        assert w.table.model().item(i, 0).text().startswith("◆ ")
+        qtbot.waitUntil(lambda: next(p for p in plot.points() if p.data() == s.answer["rung"]).symbol() == "d",
+                        timeout=2000)  # the plot redraws on the next turns of the event loop
+    # "move there": the threshold chosen for the spec on CV scores (held-out only confirms it).
     w.inspector.go_target.click()
-    assert s.threshold == pytest.approx(pt["threshold"]) and s.threshold_metrics()["precision"] >= target
-    assert f"{pt['threshold']:.3f}" in w.inspector.target_label.text()
+    assert s.threshold == s.selected.spec["threshold"] and s.threshold_chosen_on == "cv"
+    assert f"{s.selected.spec['threshold']:.3f} chosen on cv" in w.inspector.target_label.text()
+    w.inspector.slider.setValue(int(0.35 * SLIDER_STEPS))
+    assert s.threshold_chosen_on == "held-out"
 
     # Switching the map to a data map and back.
     w.inspector.kind.setCurrentIndex(w.inspector.kind.findData("mean_difference"))
@@ -159,7 +173,9 @@ def test_full_flow(qtbot, window, class_folder, tmp_path, monkeypatch, answers):
     w.act_save.trigger()
     rule = load_rule(target)
     assert (rule.family, rule.size) == ("lut", 2)
-    assert np.array_equal(rule.predict(s.run_prep.X_test), s.selected.test_pred)
+    # The threshold picked in the window is what the rule file ships, with where it was chosen.
+    assert (rule.operating_threshold, rule.operating_chosen_on) == (pytest.approx(0.35), "held-out")
+    assert np.array_equal(rule.predict(s.run_prep.X_test), s.selected.test_scores > s.threshold)
     assert not s.unsaved and str(target) in w.strip.text.text()
     header = tmp_path / "c" / "lut_2.h"
     monkeypatch.setattr(QtWidgets.QFileDialog, "getSaveFileName", lambda *a, **k: (str(header), ""))

@@ -192,7 +192,10 @@ def test_planted_label_flips_are_the_suspects():
     found = suspect_labels(prep, rungs)
     assert sorted(s["path"] for s in found) == sorted(f"p{i}" for i in flipped)
     assert all(s["score"] >= 0.9 and s["label"] == labels[int(s["path"][1:])] for s in found)
-    assert suspect_labels(prep, [r for r in rungs if r.family == "constant"]) is None  # no scores
+    # The constant's score is its training rate: it disputes no label with a high score.
+    assert suspect_labels(prep, [r for r in rungs if r.family == "constant"]) == []
+    no_cv = [p.rung for p in run_ladder(prep, [("nb", 4)], folds=0) if p.rung]
+    assert suspect_labels(prep, no_cv) is None  # no out-of-fold scores without cross-validation
     # Leak-free held-out figures leave out exactly the held-out patches with a binarized copy in training.
     leaked = prep.check.figures["leaked_test_binary"]
     assert leaked > 0

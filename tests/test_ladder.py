@@ -5,6 +5,7 @@ import pytest
 
 from pixelfit.data import Binarizer, Dataset
 from pixelfit.errors import TrainingError
+from pixelfit.evaluate import Spec, apply_spec
 from pixelfit.ladder import conclude, prepare, run_ladder, train_rung
 from pixelfit.models import LutRule, parse_size_overrides, plan_rungs
 
@@ -90,8 +91,9 @@ def ladder():
     prep = prepare(ds, Binarizer.parse("otsu"), test_fraction=0.3, seed=1)
     plan = plan_rungs(["constant", "lut", "tree", "memorize"], prep.n_pixels,
                       overrides=parse_size_overrides(["lut=1,2,3", "tree=1,3,6"]))
-    rungs = [pr.rung for pr in run_ladder(prep, plan, folds=3, target_precision=0.9) if pr.rung]
+    rungs = [pr.rung for pr in run_ladder(prep, plan, folds=3) if pr.rung]
     rec = conclude(rungs, prep.y_test)
+    apply_spec(rungs, prep.y_train, prep.y_test, Spec(precision=0.9))
     return prep, rungs, rec
 
 
@@ -123,8 +125,22 @@ def test_every_rung_measured(ladder):
     native = by["lut-3"].importance["native"]
     assert np.count_nonzero(native) <= 3 and native.max() > 0
     assert by["lut-2"].versus_smaller["size"] == 1
-    target = by["lut-3"].operating["target"]
-    assert target["chosen_on"] == "cv" and (target.get("threshold") is None or target["chosen_precision"] >= 0.9)
+    target = by["lut-3"].spec
+    assert target["chosen_on"] == "cv" and target["verdict"] in ("meets", "plausible", "fails")
+    assert by["lut-3"].operating_point == {"threshold": target["threshold"], "chosen_on": "cv"}
+
+
+def test_spec_threshold_never_sees_held_out(ladder):
+    """Shuffled held-out labels change the judgement, never the thresholds chosen."""
+    prep, rungs, _ = ladder
+    spec = Spec(precision=0.8, recall=0.7)
+    apply_spec(rungs, prep.y_train, prep.y_test, spec)
+    before = {r.key: r.spec["threshold"] for r in rungs}
+    shuffled = np.random.default_rng(3).permutation(prep.y_test)
+    apply_spec(rungs, prep.y_train, shuffled, spec)
+    assert {r.key: r.spec["threshold"] for r in rungs} == before
+    assert any(r.spec["test"]["tp"] != 0 for r in rungs)
+    apply_spec(rungs, prep.y_train, prep.y_test, Spec(precision=0.9))  # leave the module's state as it was
 
 
 def test_recommendation_ignores_held_out(ladder):

@@ -165,6 +165,18 @@ def test_clopper_pearson_equals_statsmodels():
     assert clopper_pearson_interval(0, 0) is None
 
 
+def test_one_sided_lower_bound_equals_statsmodels():
+    # Reference: statsmodels, statsmodels.stats.proportion.proportion_confint(method="beta"): the
+    # lower end of the two-sided interval at alpha = 2 (1 - confidence) is the one-sided lower
+    # bound at that confidence.
+    from pixelfit.evaluate import lower_bound
+
+    for conf in (0.8, 0.9, 0.95, 0.99):
+        for x, n in _count_pairs():
+            slo, _ = proportion_confint(x, n, alpha=2 * (1 - conf), method="beta")
+            assert lower_bound(x, n, conf) == pytest.approx(slo, abs=1e-12), (x, n, conf)
+
+
 def test_clopper_pearson_published_and_closed_form():
     # Newcombe (1998), "Two-sided confidence intervals for the single proportion: comparison of
     # seven methods", Statistics in Medicine 17, 857-872, Table I, exact (Clopper-Pearson) method,
@@ -551,26 +563,30 @@ def test_nb_rung_bound_recomputed_by_hand(k, m):
 
 
 # --- Threshold for a target precision or recall ---------------------------------------------------
-# Reference: scikit-learn's precision_recall_curve (predict positive when score >= threshold) and
-# a brute force over every candidate threshold (each distinct score) computing precision and
-# recall from the definition.
+# Reference: scikit-learn's precision_recall_curve (it calls positive when score >= t; pixelfit's
+# one decision rule is score > t, so pixelfit's point at t must equal scikit-learn's at the next
+# distinct score above t) and a brute force over every candidate threshold computing precision and
+# recall from the definition; the choice among them is checked against the documented rule
+# (pixelfit.evaluate._spec): largest smallest margin, or the most of the other measure for one target.
 
-def _brute_points(y: np.ndarray, scores: np.ndarray) -> dict[float, tuple[float | None, float]]:
+def _brute_points(y: np.ndarray, scores: np.ndarray) -> dict[float, tuple[float, float]]:
     out = {}
-    for t in np.unique(scores):
-        pred = scores >= t
-        tp = int(np.sum(pred & y))
-        out[float(t)] = (tp / int(pred.sum()) if pred.any() else None, tp / int(y.sum()))
+    for t in np.concatenate([[0.0], np.unique(scores)]):
+        pred = scores > t
+        if pred.any():
+            tp = int(np.sum(pred & y))
+            out[float(t)] = (tp / int(pred.sum()), tp / int(y.sum()))
     return out
 
 
 def test_operating_points_and_target_search_against_brute_force():
     from sklearn.metrics import precision_recall_curve
 
-    from pixelfit.evaluate import operating_points, threshold_for_target
+    from pixelfit.evaluate import operating_points
+    from pixelfit.evaluate._spec import choose_threshold
 
     rng = np.random.default_rng(8)
-    for trial in range(300):
+    for _trial in range(300):
         n = int(rng.integers(2, 60))
         y = rng.random(n) < rng.uniform(0.1, 0.9)
         if not y.any():
@@ -578,23 +594,30 @@ def test_operating_points_and_target_search_against_brute_force():
         scores = np.round(np.clip(y * rng.uniform(0, 0.5) + rng.random(n) * 0.7, 0, 1), int(rng.integers(1, 4)))
         brute = _brute_points(y, scores)
         pts = operating_points(y, scores)
+        assert {pt["threshold"] for pt in pts} == set(brute)
         ref_p, ref_r, ref_t = precision_recall_curve(y, scores)
-        assert [pt["threshold"] for pt in pts] == pytest.approx(list(ref_t))
+        ref = {float(t): (p, r) for p, r, t in zip(ref_p, ref_r, ref_t)}
+        distinct = np.unique(scores)
         for pt in pts:
             assert (pt["precision"], pt["recall"]) == pytest.approx(brute[pt["threshold"]])
-        for tp_, tr_ in ((0.5, None), (0.8, None), (0.95, None), (None, 0.5), (None, 0.9), (0.7, 0.6), (1.01, None)):
+            above = distinct[distinct > pt["threshold"]][0]
+            if float(above) in ref:
+                assert (pt["precision"], pt["recall"]) == pytest.approx(ref[float(above)])
+        for targets in ({"precision": 0.5}, {"precision": 0.95}, {"recall": 0.9}, {"precision": 0.7, "recall": 0.6},
+                        {"precision": 1.0, "recall": 1.0}):
+            got = choose_threshold(pts, targets)
+            assert got is not None
             ok = {t: pr for t, pr in brute.items()
-                  if (tp_ is None or (pr[0] is not None and pr[0] >= tp_)) and (tr_ is None or pr[1] >= tr_)}
-            got = threshold_for_target(pts, tp_, tr_)
-            if not ok:
-                assert got is None, (trial, tp_, tr_)
-                continue
-            assert got is not None, (trial, tp_, tr_)
-            if tp_ is not None:  # the highest recall meeting the targets, then the highest precision
-                best = max((pr[1], pr[0]) for pr in ok.values())
-                assert (got["recall"], got["precision"]) == pytest.approx(best)
-            else:  # only a recall target: the highest precision meeting it
-                best = max((pr[0], pr[1]) for pr in ok.values())
-                assert (got["precision"], got["recall"]) == pytest.approx(best)
-            # the threshold returned really gives what it claims on these patches
+                  if all(dict(zip(("precision", "recall"), pr))[k] >= v for k, v in targets.items())}
+
+            def margin(pr, targets=targets):
+                return min(dict(zip(("precision", "recall"), pr))[k] - v for k, v in targets.items())
+
+            if not ok:  # the smallest largest shortfall
+                assert margin(brute[got["threshold"]]) == pytest.approx(max(margin(pr) for pr in brute.values()))
+            elif len(targets) == 1:  # the most of the other measure among those meeting the target
+                other = 1 if "precision" in targets else 0
+                assert brute[got["threshold"]][other] == pytest.approx(max(pr[other] for pr in ok.values()))
+            else:
+                assert margin(brute[got["threshold"]]) == pytest.approx(max(margin(pr) for pr in ok.values()))
             assert brute[got["threshold"]] == pytest.approx((got["precision"], got["recall"]))

@@ -45,7 +45,8 @@ def test_round_trip_identical_predictions(prepared, rungs, family, tmp_path):
     if hasattr(rung.estimator, "predict_proba"):
         assert np.allclose(rule.scores(X), rung.estimator.predict_proba(X)[:, 1], atol=1e-12)
     doc = json.loads(path.read_text())
-    assert doc["schema_version"] == 1 and doc["model"]["family"] == family
+    assert doc["operating"] == {"threshold": 0.5, "chosen_on": "default"}
+    assert doc["schema_version"] == 2 and doc["model"]["family"] == family
     assert len(doc["training_data"]["fingerprint"]) == 64
     assert "caution" in doc and "validate" in doc["caution"].lower()
     assert "bound_convention" in doc["evaluation"]
@@ -77,7 +78,7 @@ def _mutate(doc, path, value=KeyError):
 
 @pytest.mark.parametrize("path,value,match", [
     (("format",), "other-tool", "format"),
-    (("schema_version",), 2, "newer"),
+    (("schema_version",), 3, "newer"),
     (("model",), KeyError, "model"),
     (("patch_shape",), KeyError, "patch_shape"),
     (("model", "table"), [0, 1], "model/table"),

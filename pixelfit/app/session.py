@@ -18,9 +18,9 @@ Events (name: when)
 ``selection``   another rung was selected
 ``threshold``   the score threshold of the selected rung moved
 ``map``         the kind of per-pixel map shown changed
-``target``      the target precision changed
 ``check``       the data check's suspect labels changed (after a climb)
 ``axis``        the x axis of the ladder plot changed
+``spec``        the spec changed; every rung's spec entry and the answer were renewed
 ``message``     a line for the status area: ``(text, is_error)``
 
 The data check itself comes with every prepared set (:attr:`Prepared.check`, the same core call
@@ -39,7 +39,7 @@ import numpy as np
 
 from pixelfit.data import FINDINGS, Binarizer, DataCheck, Dataset, grey_histogram, load_dataset
 from pixelfit.errors import PixelfitError
-from pixelfit.evaluate import detection_metrics, threshold_for_target
+from pixelfit.evaluate import Spec, apply_spec, detection_metrics
 from pixelfit.firmware import export_c
 from pixelfit.ladder import Prepared, Rung, conclude, prepare, suspect_labels
 from pixelfit.models import FAMILIES, FAMILY_ORDER, plan_rungs
@@ -47,7 +47,7 @@ from pixelfit.outputs import error_curves
 from pixelfit.rulefile import load_rule, save_rung
 
 EVENTS = ("dataset", "prep", "gallery", "settings", "run", "progress", "rungs", "selection", "threshold",
-          "map", "target", "check", "axis", "message")
+          "map", "spec", "check", "axis", "message")
 
 #: Per-pixel maps the inspector can show: rung maps first, then maps of the training data.
 MAP_KINDS = {"native": "model's own weights", "permutation": "permutation (held-out)",
@@ -137,9 +137,14 @@ class Session:
         self.selected: Rung | None = None
         self._user_selected = False
         self.threshold = 0.5
+        #: Where the selected rung's threshold was chosen: default, cv, train or held-out.
+        self.threshold_chosen_on = "default"
+        self._thresholds: dict[str, tuple[float, str]] = {}  # per rung key: the threshold the user set
         self.map_kind = "native"
-        self.target_precision: float | None = 0.95
         self.ladder_axis = "pixels"
+        #: The spec the rungs are judged against (None: no spec), and its answer.
+        self.spec: Spec | None = None
+        self.answer: dict | None = None
         self.saved_paths: list[Path] = []
         self._data_maps: tuple[Prepared, dict[str, np.ndarray]] | None = None  # maps of one prepared set
         self._at_threshold: tuple | None = None  # (rung, threshold, prepared set, metrics) last computed
@@ -350,6 +355,7 @@ class Session:
         """
         self.rungs.append(rung)
         self.recommended = conclude(self.rungs, self.run_prep.y_test)
+        self.answer = apply_spec(self.rungs, self.run_prep.y_train, self.run_prep.y_test, self.spec)
         self._emit("rungs")
 
     def end_run(self, outcome: str, detail: str = "") -> None:
@@ -372,6 +378,8 @@ class Session:
         had = bool(self.rungs)
         self.rungs = []
         self.recommended = None
+        self.answer = None
+        self._thresholds = {}
         self.saved_paths = []
         self.run_prep = None
         self._at_threshold = None
@@ -417,17 +425,30 @@ class Session:
         if rung is self.selected:
             return
         self.selected = rung
-        self.threshold = 0.5
-        target = (rung.operating or {}).get("target") if rung is not None else None
-        if target and target.get("threshold") is not None:  # the threshold the ladder chose for a target
-            self.threshold = float(target["threshold"])
+        self.threshold, self.threshold_chosen_on = self._threshold_of(rung)
         self._emit("selection")
 
-    def set_threshold(self, value: float) -> None:
+    def _threshold_of(self, rung: Rung | None) -> tuple[float, str]:
+        """The threshold the user kept for the rung, else its own (the spec's, chosen on CV, or 0.5)."""
+        if rung is None:
+            return 0.5, "default"
+        if rung.key in self._thresholds:
+            return self._thresholds[rung.key]
+        op = rung.operating_point
+        return float(op["threshold"]), op["chosen_on"]
+
+    def set_threshold(self, value: float, chosen_on: str = "held-out") -> None:
+        """Move the selected rung's threshold; it is kept for the rung and saved with it.
+
+        ``chosen_on`` says honestly where it was chosen: a threshold moved by hand while the window
+        shows held-out figures was chosen on the held-out patches.
+        """
         value = float(min(1.0, max(0.0, value)))
-        if value == self.threshold:
+        if value == self.threshold and chosen_on == self.threshold_chosen_on:
             return
-        self.threshold = value
+        self.threshold, self.threshold_chosen_on = value, chosen_on
+        if self.selected is not None:
+            self._thresholds[self.selected.key] = (value, chosen_on)
         self._emit("threshold")
 
     def set_map_kind(self, kind: str) -> None:
@@ -437,10 +458,35 @@ class Session:
             self.map_kind = kind
             self._emit("map")
 
-    def set_target_precision(self, value: float | None) -> None:
-        if value != self.target_precision:
-            self.target_precision = value
-            self._emit("target")
+    def set_spec(self, precision: float | None, recall: float | None, confidence: float = 0.95,
+                 budget_bytes: int | None = None) -> bool:
+        """Judge the rungs against a spec (both targets None: no spec); a bad spec -> message, False.
+
+        The same core call as ``pixelfit fit --spec``: thresholds are chosen on each rung's CV (or
+        training) scores, and the held-out patches only judge them.
+        """
+        try:
+            spec = None if precision is None and recall is None else Spec(precision, recall, confidence, budget_bytes)
+        except PixelfitError as exc:
+            self.say(str(exc), True)
+            return False
+        if spec == self.spec:
+            return True
+        self.spec = spec
+        if self.run_prep is not None:
+            self.answer = apply_spec(self.rungs, self.run_prep.y_train, self.run_prep.y_test, spec)
+        if self.selected is not None and self.selected.key not in self._thresholds:
+            self.threshold, self.threshold_chosen_on = self._threshold_of(self.selected)
+            self._emit("threshold")
+        self._emit("spec")
+        self._emit("rungs")
+        return True
+
+    @property
+    def answer_rung(self) -> Rung | None:
+        """The rung the spec's answer names, or None."""
+        key = (self.answer or {}).get("rung")
+        return None if key is None else self.rung(key)
 
     def held_out_predictions(self) -> np.ndarray | None:
         """Held-out predictions of the selected rung: at the threshold when it has scores."""
@@ -448,7 +494,7 @@ class Session:
         if r is None:
             return None
         if r.scored:
-            return r.test_scores >= self.threshold
+            return r.test_scores > self.threshold  # one decision rule everywhere: score above the threshold
         return np.asarray(r.test_pred, bool)
 
     def threshold_metrics(self) -> dict | None:
@@ -467,11 +513,15 @@ class Session:
         return dict(last[3])
 
     def target_point(self) -> dict | None:
-        """The held-out operating point meeting the target precision with the most recall."""
+        """The selected rung's spec entry (threshold chosen on CV or training scores), or None."""
         r = self.selected
-        if r is None or not r.scored or self.target_precision is None or not r.operating:
-            return None
-        return threshold_for_target(r.operating["test_points"], self.target_precision, None)
+        return None if r is None or r.spec is None else r.spec
+
+    def move_to_spec(self) -> None:
+        """Set the selected rung's threshold to the one chosen for the spec (on CV, not held-out)."""
+        pt = self.target_point()
+        if pt is not None:
+            self.set_threshold(pt["threshold"], pt["chosen_on"])
 
     def misses(self) -> tuple[np.ndarray, np.ndarray]:
         """Dataset rows of held-out false positives and false negatives of the selected rung."""
@@ -507,7 +557,8 @@ class Session:
         if r is None:
             self.say("select a rung to save first", True)
             return None
-        written = self._write(path, lambda: save_rung(path, self.run_prep, r))
+        operating = {"threshold": self.threshold, "chosen_on": self.threshold_chosen_on}
+        written = self._write(path, lambda: save_rung(path, self.run_prep, r, operating))
         if written is None:
             return None
         out = Path(written)

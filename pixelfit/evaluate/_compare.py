@@ -1,4 +1,4 @@
-"""Comparing rungs: McNemar's test, the one-standard-error choice, operating points."""
+"""Comparing rungs: McNemar's test and the one-standard-error choice."""
 
 from __future__ import annotations
 
@@ -6,7 +6,6 @@ import math
 
 import numpy as np
 from scipy.stats import chi2
-from sklearn.metrics import precision_recall_curve
 
 
 def mcnemar(y_true: np.ndarray, pred_a: np.ndarray, pred_b: np.ndarray) -> dict:
@@ -45,30 +44,3 @@ def one_standard_error_choice(cv_means: list[float | None], cv_sds: list[float |
     se = (cv_sds[best] or 0.0) / math.sqrt(folds)
     within = [i for i in means if means[i] >= means[best] - se]
     return min(within, key=lambda i: (complexity[i], i))
-
-
-def operating_points(y_true: np.ndarray, scores: np.ndarray) -> list[dict]:
-    """Precision and recall when predicting positive for score >= threshold, one row per threshold."""
-    y_true = np.asarray(y_true, bool)
-    if len(y_true) == 0 or not y_true.any():
-        return []
-    precision, recall, thresholds = precision_recall_curve(y_true, scores)
-    return [{"threshold": float(t), "precision": float(p), "recall": float(r)}
-            for p, r, t in zip(precision[:-1], recall[:-1], thresholds)]
-
-
-def threshold_for_target(points: list[dict], target_precision: float | None = None,
-                         target_recall: float | None = None) -> dict | None:
-    """The operating point meeting the targets; None when no threshold meets them.
-
-    With a precision target: the highest recall among thresholds meeting it (and the recall target
-    if one is given); with only a recall target: the highest precision among those meeting it.
-    """
-    ok = [pt for pt in points
-          if (target_precision is None or pt["precision"] >= target_precision)
-          and (target_recall is None or pt["recall"] >= target_recall)]
-    if not ok or (target_precision is None and target_recall is None):
-        return None
-    if target_precision is not None:
-        return max(ok, key=lambda pt: (pt["recall"], pt["precision"], -pt["threshold"]))
-    return max(ok, key=lambda pt: (pt["precision"], pt["recall"], pt["threshold"]))

@@ -51,12 +51,11 @@ def _comment(text: str) -> str:
 def _body(rule: Rule, ident: str, P: str) -> tuple[list[str], list[str], bool]:
     """(static tables, statements of the predict function, needs math.h)."""
     f = rule.family
-    m = rule.doc["model"]
     tables: list[str] = []
     code: list[str] = []
     needs_math = False
     if f == "constant":
-        code.append(f"    (void)patch;\n    return {int(bool(m['label']))};")
+        code.append(f"    (void)patch;\n    return {int(rule._label)};")
     elif f == "lut":
         px = rule._pixels
         k = len(px)
@@ -100,7 +99,8 @@ def _body(rule: Rule, ident: str, P: str) -> tuple[list[str], list[str], bool]:
         tables.append(f"static const double {ident}_weights[{P}_PIXELS] = {{\n{_rows(w, 4, _double)}\n}};")
         code.append(f"    double z = {_double(rule._bias)};\n    unsigned i;\n"
                     f"    for (i = 0u; i < {P}_PIXELS; ++i) {{\n        if (patch[i] != 0u) {{\n"
-                    f"            z += {ident}_weights[i];\n        }}\n    }}\n    return z > 0.0 ? 1 : 0;")
+                    f"            z += {ident}_weights[i];\n        }}\n    }}\n"
+                    f"    return z > {_double(rule.decision_logit)} ? 1 : 0;")
     elif f == "nb":
         px = rule._pixels
         k = len(px)
@@ -113,7 +113,7 @@ def _body(rule: Rule, ident: str, P: str) -> tuple[list[str], list[str], bool]:
         code.append(f"    double neg = {_double(base[0])};\n    double pos = {_double(base[1])};\n    unsigned j;\n"
                     f"    for (j = 0u; j < {k}u; ++j) {{\n        if (patch[{ident}_pixels[j]] != 0u) {{\n"
                     f"            neg += {ident}_gain_neg[j];\n            pos += {ident}_gain_pos[j];\n        }}\n    }}\n"
-                    f"    return pos > neg ? 1 : 0;")
+                    f"    return pos - neg > {_double(rule.decision_logit)} ? 1 : 0;")
     elif f == "mlp":
         act = rule._act
         needs_math = act in ("tanh", "logistic")
@@ -133,7 +133,7 @@ def _body(rule: Rule, ident: str, P: str) -> tuple[list[str], list[str], bool]:
                          f"        for (i = 0u; i < {n_in}u; ++i) {{\n            a += {term};\n        }}\n"
                          f"        nxt[j] = {'a' if last else apply};\n    }}")
             lines.append(f"    for (j = 0u; j < {n_out}u; ++j) {{\n        cur[j] = nxt[j];\n    }}")
-        lines.append("    return cur[0] > 0.0 ? 1 : 0;")
+        lines.append(f"    return cur[0] > {_double(rule.decision_logit)} ? 1 : 0;")
         code.append("\n".join(lines))
     else:
         raise ValueError(f"no C export for family {f}")
@@ -147,8 +147,16 @@ def header_text(rule: Rule, ident: str) -> str:
     b = rule.binarizer
     doc = rule.doc
     # evaluation is free-form in the schema: take only numbers from it, never text into the C file.
-    test = (doc.get("evaluation") or {}).get("test")
+    ev = doc.get("evaluation")
+    ev = ev if isinstance(ev, dict) else {}
+    spec = ev.get("spec")
+    spec = spec if isinstance(spec, dict) else {}
+    # The held-out figures at the shipped threshold: the spec's when the rule ships the spec's threshold.
+    at_spec = spec.get("threshold") == rule.operating_threshold
+    test = spec.get("test") if at_spec else ev.get("test")
     test = test if isinstance(test, dict) else {}
+    if at_spec and "n" not in test:
+        test = {**test, "n": sum(v for k, v in test.items() if k in ("tp", "fp", "fn", "tn") and isinstance(v, int))}
     lines = [
         f"/* {ident}.h: pixelfit rule {rule.family}-{rule.size}, exported as C99.",
         f" * Detects {_comment(rule.positive)!s} (returns 1) against {_comment(rule.negative)!s} (returns 0).",
@@ -158,6 +166,8 @@ def header_text(rule: Rule, ident: str) -> str:
         f" * Training data fingerprint (SHA-256): {doc['training_data']['fingerprint']}",
         f" * Held-out precision {_stat(test.get('precision'))}, recall {_stat(test.get('recall'))} on "
         f"{_stat(test.get('n'))} patches.",
+        f" * Operating threshold {rule.operating_threshold:.6g} (chosen on: {_comment(rule.operating_chosen_on)}): "
+        "a patch is positive when its score is above it.",
         f" * Caution: {_comment(CAUTION)}",
         " */",
         f"#ifndef {P}_H",

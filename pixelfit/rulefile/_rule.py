@@ -26,7 +26,11 @@ from pixelfit.data import Binarizer
 from pixelfit.errors import RuleFileError
 
 RULE_FORMAT = "pixelfit-rule"
-RULE_VERSION = 1
+RULE_VERSION = 2
+#: Schema versions this pixelfit reads (version 1 files have no ``operating`` entry: threshold 0.5).
+READABLE_VERSIONS = (1, 2)
+#: Where an operating threshold can have been chosen.
+CHOSEN_ON = ("default", "cv", "train", "held-out", "manual")
 #: Rule files larger than this are refused before being read.
 MAX_RULE_BYTES = 64 * 1024 * 1024
 #: Deepest JSON nesting accepted (a valid rule file needs 5).
@@ -112,13 +116,15 @@ def model_section(family: str, size: int, est, shape: tuple[int, int]) -> dict:
     return m
 
 
-def rule_document(prep, rung) -> dict:
+def rule_document(prep, rung, operating: dict | None = None) -> dict:
     """The rule-file document of one trained rung of a ladder.
 
     Parameters
     ----------
     prep : pixelfit.ladder.Prepared
     rung : pixelfit.ladder.Rung
+    operating : dict, optional
+        ``{threshold, chosen_on}`` to ship; default the rung's own (its spec threshold, else 0.5).
     """
     return {
         "format": RULE_FORMAT,
@@ -129,11 +135,13 @@ def rule_document(prep, rung) -> dict:
         "classes": {"positive": prep.positive, "negative": prep.negative},
         "binarize": prep.binarizer.to_dict(),
         "model": model_section(rung.family, rung.size, rung.estimator, prep.shape),
+        "operating": dict(operating or rung.operating_point),
         "evaluation": {
             "train": rung.train, "cv": rung.cv, "test": rung.test, "search": rung.search,
             "parameters": rung.figures["parameters"], "log2_class_size": rung.figures["log2_class_size"],
             "vc_dim": rung.figures["vc_dim"], "bound": rung.bound, "bound_convention": BOUND_CONVENTION,
             "undefined_values": UNDEFINED_CONVENTION, "recommended": rung.recommended,
+            "cost": rung.cost, "spec": rung.spec, "verdict": None if rung.spec is None else rung.spec["verdict"],
         },
         "training_data": {
             "fingerprint": prep.train_fingerprint,
@@ -145,9 +153,9 @@ def rule_document(prep, rung) -> dict:
     }
 
 
-def save_rung(path: str | os.PathLike, prep, rung) -> Path:
-    """Write the rule file of one rung atomically; returns the path."""
-    doc = rule_document(prep, rung)
+def save_rung(path: str | os.PathLike, prep, rung, operating: dict | None = None) -> Path:
+    """Write the rule file of one rung atomically; returns the path. See :func:`rule_document`."""
+    doc = rule_document(prep, rung, operating)
     parse_rule(doc)  # never write a file we would refuse to read
     return write_json(path, doc)
 
@@ -210,7 +218,7 @@ def parse_rule(doc: str | bytes | dict) -> Rule:
     if fmt != RULE_FORMAT:
         raise RuleFileError(f"format: expected {RULE_FORMAT!r}, found {fmt!r}; not a pixelfit rule file")
     version = doc.get("schema_version")
-    if isinstance(version, int) and not isinstance(version, bool) and version > RULE_VERSION:
+    if isinstance(version, int) and not isinstance(version, bool) and version > max(READABLE_VERSIONS):
         raise RuleFileError(f"schema_version: {version} is newer than this pixelfit reads ({RULE_VERSION}); "
                             "upgrade pixelfit")
     errors = sorted(_validator().iter_errors(doc), key=lambda e: (len(e.absolute_path), list(map(str, e.absolute_path))))
@@ -263,6 +271,13 @@ class Rule:
     family, size, shape, positive, negative, binarizer
     """
 
+    # Scores the stored decisions are derived from (set by _build for the families that have them).
+    _score: float
+    _scores: np.ndarray
+    _mscores: np.ndarray
+    _default_score: float
+    _tscore: np.ndarray
+
     def __init__(self, doc: dict):
         self.doc = doc
         m = doc["model"]
@@ -279,7 +294,39 @@ class Rule:
             raise RuleFileError("binarize/threshold: an otsu rule must record its learned threshold")
         h, w = self.shape
         self.n_pixels = h * w
+        op = doc.get("operating") or {"threshold": 0.5, "chosen_on": "default"}
+        #: A patch is called positive when its score is above this (0.5: the rule's own decision).
+        self.operating_threshold: float = float(op["threshold"])
+        #: Where the threshold was chosen: default, cv, train, held-out or manual.
+        self.operating_chosen_on: str = str(op["chosen_on"])
         self._build(m)
+        self._decide_labels(self.operating_threshold)
+
+    def _decide_labels(self, t: float) -> None:
+        """Re-derive the stored decisions of the table-like families as score > t (one rule everywhere)."""
+        f = self.family
+        if f == "constant":
+            self._label = bool(self._score > t)
+        elif f == "lut":
+            self._table = self._scores > t
+        elif f == "memorize":
+            self._labels = self._mscores > t
+            self._default_label = bool(self._default_score > t)
+        elif f == "tree":
+            self._tlabel = self._tscore > t
+
+    @property
+    def decision_logit(self) -> float:
+        """logit(threshold): the linear families call positive when their log-odds exceed it.
+
+        Clamped to +-746, beyond which the logistic function of a double is exactly 0 or 1.
+        """
+        t = self.operating_threshold
+        if t <= 0.0:
+            return -746.0
+        if t >= 1.0:
+            return 746.0
+        return float(min(746.0, max(-746.0, math.log(t / (1.0 - t)))))
 
     @property
     def scored(self) -> bool:
@@ -437,14 +484,14 @@ class Rule:
         return self._decide(self._check_bits(X))[0]
 
     def predict(self, X, threshold: float | None = None) -> np.ndarray:
-        """True where the patch is called positive. ``threshold``: call positive when score >= it.
+        """True where the patch's score is above ``threshold`` (default: :attr:`operating_threshold`).
 
         Parameters
         ----------
         X : ndarray of shape (n, n_pixels) or (n, h, w), 0/1
         """
-        s, pred = self._decide(self._check_bits(X))
-        return pred if threshold is None else s >= threshold
+        s = self._decide(self._check_bits(X))[0]
+        return s > (self.operating_threshold if threshold is None else threshold)
 
     def binarize(self, images: np.ndarray) -> np.ndarray:
         """The rule's own binarization of uint8 patches (n, h, w) -> bool (n, h*w)."""

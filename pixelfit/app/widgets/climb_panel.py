@@ -1,4 +1,4 @@
-"""Climb settings: which families, how large, how many folds; the climb and halt buttons."""
+"""Climb settings: which families, how large, how many folds; the spec; the climb and halt buttons."""
 
 from __future__ import annotations
 
@@ -35,6 +35,26 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
         self.folds.setToolTip("Cross-validation folds on the training part (needed for the recommendation)")
         self.max_size.valueChanged.connect(self._write_back)
         self.folds.valueChanged.connect(self._write_back)
+        # The spec: the same three settings as `pixelfit fit --spec ... --confidence ... --budget-bytes`.
+        self.spec_precision = self._unit_box("precision the detector must reach on unseen patches (off: none)")
+        self.spec_recall = self._unit_box("recall the detector must reach on unseen patches (off: none)")
+        self.spec_confidence = QtWidgets.QDoubleSpinBox()
+        self.spec_confidence.setRange(0.5, 0.999)
+        self.spec_confidence.setDecimals(3)
+        self.spec_confidence.setSingleStep(0.01)
+        self.spec_confidence.setValue(0.95)  # the command line's default
+        self.spec_confidence.setToolTip("Confidence of the held-out lower bounds (one-sided Clopper-Pearson)")
+        self.spec_budget = QtWidgets.QSpinBox()
+        self.spec_budget.setRange(0, 10_000_000)
+        self.spec_budget.setSpecialValueText("no budget")
+        self.spec_budget.setSuffix(" bytes")
+        self.spec_budget.setToolTip("Most flash bytes the detector may take; rungs above it are over budget")
+        for w in (self.spec_precision, self.spec_recall, self.spec_confidence):
+            w.valueChanged.connect(self._write_spec)
+        self.spec_budget.valueChanged.connect(self._write_spec)
+        self.answer = QtWidgets.QLabel("")
+        self.answer.setWordWrap(True)
+        self.answer.setTextInteractionFlags(QtCore.Qt.TextInteractionFlag.TextSelectableByMouse)
         self.plan_label = QtWidgets.QLabel("")
         self.plan_label.setWordWrap(True)
         climb = QtWidgets.QToolButton()
@@ -52,6 +72,10 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
         form.addRow(grid)
         form.addRow("largest size", self.max_size)
         form.addRow("folds", self.folds)
+        form.addRow("precision ≥", self.spec_precision)
+        form.addRow("recall ≥", self.spec_recall)
+        form.addRow("confidence", self.spec_confidence)
+        form.addRow("flash budget", self.spec_budget)
         form.addRow(self.plan_label)
         buttons = QtWidgets.QHBoxLayout()
         buttons.addWidget(climb)
@@ -59,11 +83,38 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
         form.addRow(buttons)
         form.addRow(self.bar)
         form.addRow(self.step)
+        form.addRow(self.answer)
         self.listen(session, "settings", self.refresh)
         self.listen(session, "prep", self.refresh)
         self.listen(session, "run", self.refresh)
         self.listen(session, "progress", self._progress_later.request)
+        self.listen(session, "spec", self.refresh)
+        self.listen(session, "rungs", self._show_answer)
         self.refresh()
+
+    @staticmethod
+    def _unit_box(tip: str) -> QtWidgets.QDoubleSpinBox:
+        box = QtWidgets.QDoubleSpinBox()
+        box.setRange(0.0, 1.0)
+        box.setDecimals(3)
+        box.setSingleStep(0.01)
+        box.setSpecialValueText("off")
+        box.setToolTip(tip)
+        return box
+
+    def _write_spec(self, *_):
+        self.session.set_spec(self.spec_precision.value() or None, self.spec_recall.value() or None,
+                              self.spec_confidence.value(), self.spec_budget.value() or None)
+
+    def _show_answer(self) -> None:
+        s = self.session
+        a = s.answer
+        if s.spec is None:
+            self.answer.setText("")
+        elif a is None:
+            self.answer.setText(f"spec: {s.spec.describe()}; climb to answer it")
+        else:
+            self.answer.setText(f"<b>answer: {a['rung'] or 'none'}</b> ({a['verdict']}) — {a['reason']}")
 
     def _write_back(self, *_):
         s = self.session
@@ -78,11 +129,17 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
             cb.setChecked(name in s.families)
             cb.setEnabled(not s.running)
             cb.blockSignals(False)
-        for spin, value in ((self.max_size, s.max_size or 0), (self.folds, s.folds)):
+        spec = s.spec
+        for spin, value in ((self.max_size, s.max_size or 0), (self.folds, s.folds),
+                            (self.spec_precision, (spec.precision or 0.0) if spec else 0.0),
+                            (self.spec_recall, (spec.recall or 0.0) if spec else 0.0),
+                            (self.spec_confidence, spec.confidence if spec else self.spec_confidence.value()),
+                            (self.spec_budget, (spec.budget_bytes or 0) if spec else self.spec_budget.value())):
             spin.blockSignals(True)
             spin.setValue(value)
             spin.setEnabled(not s.running)
             spin.blockSignals(False)
+        self._show_answer()
         if not s.running:
             try:
                 n = len(s.plan())

@@ -101,15 +101,12 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self.slider_value.setRange(0.0, 1.0)
         self.slider_value.setDecimals(3)
         self.slider_value.setSingleStep(0.01)
-        self.target = QtWidgets.QDoubleSpinBox()
-        self.target.setRange(0.0, 1.0)
-        self.target.setDecimals(2)
-        self.target.setSingleStep(0.01)
-        self.target.setSpecialValueText("off")
+        self.chosen_label = QtWidgets.QLabel("")
         self.target_label = QtWidgets.QLabel("")
         self.target_label.setWordWrap(True)
         self.go_target = QtWidgets.QPushButton("move there")
-        self.go_target.setToolTip("Set the threshold to the held-out point that meets the target precision")
+        self.go_target.setToolTip("Set the threshold to the one chosen for the spec on cross-validation scores "
+                                  "(the held-out patches only confirm it)")
 
         self.fp_label = QtWidgets.QLabel("")
         self.fn_label = QtWidgets.QLabel("")
@@ -133,9 +130,9 @@ class RungInspector(Listens, QtWidgets.QWidget):
         thr.addWidget(QtWidgets.QLabel("score threshold"), 0, 0)
         thr.addWidget(self.slider, 0, 1, 1, 2)
         thr.addWidget(self.slider_value, 0, 3)
-        thr.addWidget(QtWidgets.QLabel("target precision"), 1, 0)
-        thr.addWidget(self.target, 1, 1)
-        thr.addWidget(self.go_target, 1, 2)
+        thr.addWidget(QtWidgets.QLabel("chosen on"), 1, 0)
+        thr.addWidget(self.chosen_label, 1, 1)
+        thr.addWidget(self.go_target, 1, 3)
         thr.addWidget(self.target_label, 2, 0, 1, 4)
         thr.setColumnStretch(2, 1)
         misses = QtWidgets.QGridLayout()
@@ -155,8 +152,7 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self.kind.activated.connect(lambda i: session.set_map_kind(self.kind.itemData(i)))
         self.slider.valueChanged.connect(lambda v: session.set_threshold(v / SLIDER_STEPS))
         self.slider_value.valueChanged.connect(session.set_threshold)
-        self.target.valueChanged.connect(lambda v: session.set_target_precision(v or None))
-        self.go_target.clicked.connect(self._go_to_target)
+        self.go_target.clicked.connect(session.move_to_spec)
         # A new selection shows its title, map and fixed rows at once and the held-out figures at
         # the threshold (core metrics, miss thumbnails) on the next turn of the event loop, so
         # that input and painting get in between the two halves.
@@ -166,7 +162,7 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self.listen(session, "threshold", self._threshold_changed)
         self.listen(session, "map", self._show_map)
         self.listen(session, "prep", self._prep_changed)
-        self.listen(session, "target", self._target_changed)
+        self.listen(session, "spec", self._target_changed)
         self.refresh()
 
     @staticmethod
@@ -205,6 +201,8 @@ class RungInspector(Listens, QtWidgets.QWidget):
             return
         fam = FAMILIES[r.family]
         mark = " — recommended" if r.recommended else ""
+        if self.session.answer_rung is r:
+            mark += " — the answer to the spec"
         notes = "".join(f"<br><i>{n}</i>" for n in r.notes)
         s = self.session
         if s.prep is not None and s.run_prep is not None and s.prep.binarizer != s.run_prep.binarizer:
@@ -217,11 +215,9 @@ class RungInspector(Listens, QtWidgets.QWidget):
         r = s.selected
         self._title()
         scored = r is not None and r.scored
-        for w in (self.slider, self.slider_value, self.target, self.go_target):
+        for w in (self.slider, self.slider_value):
             w.setEnabled(scored)
-        self.target.blockSignals(True)
-        self.target.setValue(s.target_precision or 0.0)
-        self.target.blockSignals(False)
+        self.go_target.setEnabled(r is not None and r.spec is not None)
         self._put_threshold()
         self._show_map()
         self._fill_static_rows()
@@ -272,26 +268,23 @@ class RungInspector(Listens, QtWidgets.QWidget):
     def _target_changed(self) -> None:
         s = self.session
         r = s.selected
-        if r is None or not r.scored:
-            self.target_label.setText("this rung gives no score; its decision is fixed" if r is not None else "")
+        self.chosen_label.setText("" if r is None else s.threshold_chosen_on)
+        self.go_target.setEnabled(r is not None and r.spec is not None)
+        if r is None:
+            self.target_label.setText("")
             return
-        if s.target_precision is None:
-            self.target_label.setText("no target set")
+        if r.spec is None:
+            self.target_label.setText("no spec set (see the Climb panel)")
             return
-        pt = s.target_point()
-        if pt is None:
-            self.target_label.setText(f"no threshold reaches precision {s.target_precision:.2f} on held-out patches")
-        else:
-            now = s.threshold_metrics()
-            here = "; met at this threshold" if now and now["precision"] is not None \
-                and now["precision"] >= s.target_precision else ""
-            self.target_label.setText(f"met on held-out patches from threshold {pt['threshold']:.3f}: precision "
-                                      f"{pt['precision']:.3f}, recall {pt['recall']:.3f}{here}")
+        e, t = r.spec, r.spec["test"]
 
-    def _go_to_target(self) -> None:
-        pt = self.session.target_point()
-        if pt is not None:
-            self.session.set_threshold(pt["threshold"])
+        def f(v):
+            return "–" if v is None else f"{v:.3f}"
+        self.target_label.setText(
+            f"spec: threshold {e['threshold']:.3f} chosen on {e['chosen_on']} (there precision {f(e['cv']['precision'])}, "
+            f"recall {f(e['cv']['recall'])}); held-out tp {t['tp']}, fp {t['fp']}, fn {t['fn']}, tn {t['tn']}: "
+            f"precision {f(t['precision'])} (lower {f(t['precision_lower'])}), recall {f(t['recall'])} "
+            f"(lower {f(t['recall_lower'])}) — {e['verdict']}")
 
     def _show_map(self) -> None:
         s = self.session

@@ -44,8 +44,8 @@ def _log2h(v) -> str:
 
 #: (header, tooltip, cell text of a rung)
 COLUMNS: list[tuple[str, str, callable]] = [
-    ("rung", "family-size; ★ marks the recommended rung; (beam) a truth table found by a beam search, "
-             "not by trying every pixel set",
+    ("rung", "family-size; ★ marks the recommended rung, ◆ the answer to the spec; (beam) a truth table found "
+             "by a beam search, not by trying every pixel set",
      lambda r: ("★ " if r.recommended else "") + r.key + (BEAM_MARK if is_beam(r.search) else "")),
     ("size", "the family's size axis", lambda r: f"{r.size} {FAMILIES[r.family].size_name}"),
     ("log2 |H|", "log2 of the number of rules in the family's class at this size (finite classes)",
@@ -60,6 +60,8 @@ COLUMNS: list[tuple[str, str, callable]] = [
      lambda r: _with_ci(r.test["recall"], r.test["recall_ci"])),
     ("bound", "upper bound on the true error rate at 95 % confidence",
      lambda r: "–" if r.bound is None else _num(r.bound["error_upper"])),
+    ("spec", "verdict on the spec: threshold chosen on CV scores, judged by the held-out lower bounds",
+     lambda r: "–" if r.spec is None else r.spec["verdict"]),
 ]
 
 
@@ -74,9 +76,15 @@ def _tooltip(r: Rung) -> str:
     return "\n".join(lines)
 
 
-def _row_look(r: Rung) -> tuple[tuple[str, ...], bool, str]:
-    """Everything a rung's row shows: the cell texts, the recommended mark, the tooltip."""
-    return tuple(cell(r) for _, _, cell in COLUMNS), bool(r.recommended), _tooltip(r)
+def _row_look(r: Rung, answer: str | None = None) -> tuple[tuple[str, ...], bool, str]:
+    """Everything a rung's row shows: the cell texts, the recommended mark, the tooltip.
+
+    ``answer`` is the key of the rung that answers the spec: its name is marked ◆.
+    """
+    texts = [cell(r) for _, _, cell in COLUMNS]
+    if r.key == answer:
+        texts[0] = "◆ " + texts[0]
+    return tuple(texts), bool(r.recommended), _tooltip(r)
 
 
 class LadderTableModel(QtGui.QStandardItemModel):
@@ -114,8 +122,9 @@ class LadderTableModel(QtGui.QStandardItemModel):
             reset = True
         else:
             reset = False
+        answer = (self.session.answer or {}).get("rung")
         for i, r in enumerate(now):
-            look = _row_look(r)
+            look = _row_look(r, answer)
             if i == len(self.rows):
                 self.appendRow(self._items(r, look))
                 self.rows.append(r)
@@ -379,12 +388,17 @@ class ErrorPlot(Listens, pg.PlotWidget):
                 shown.extend(ys)
                 if (xs or (fam, kind) in self._curves) and self._changed((fam, kind), (xs, ys)):
                     self._curve(fam, kind).setData(list(xs), list(ys))
-        spots = tuple((r.key, pos[r.key][1], min(1.0, _point_error(r)), r.recommended) for r in rungs)
+        answer = (self.session.answer or {}).get("rung")
+        spots = tuple((r.key, pos[r.key][1], min(1.0, _point_error(r)), r.recommended, r.key == answer)
+                      for r in rungs)
         if self._changed("points", spots):
+            # The answer to the spec is a large diamond, the recommended rung a star.
             self.points.setData(
                 x=[p[1] for p in spots], y=[p[2] for p in spots], data=[p[0] for p in spots],
-                brush=[pg.mkBrush(*FAMILY_RGB.get(r.family, (0, 0, 0))) for r in rungs], pen=pg.mkPen("w"),
-                symbol=["star" if p[3] else "o" for p in spots], size=[16 if p[3] else 9 for p in spots])
+                brush=[pg.mkBrush(*FAMILY_RGB.get(r.family, (0, 0, 0))) for r in rungs],
+                pen=[pg.mkPen("k", width=2) if p[4] else pg.mkPen("w") for p in spots],
+                symbol=["d" if p[4] else "star" if p[3] else "o" for p in spots],
+                size=[18 if p[4] else 16 if p[3] else 9 for p in spots])
         top = min(1.0, max(shown, default=1.0) * 1.1 + 0.02)
         if self._changed("y", top):
             pi.setYRange(0, top, padding=0)
