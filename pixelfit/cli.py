@@ -18,6 +18,10 @@ from pixelfit.text import ladder_table, metrics_line, pixel_grid
 
 EXIT_OK, EXIT_INCOMPLETE, EXIT_BAD_INPUT = 0, 1, 2
 
+#: The flag of each setting a core refusal may name in its ``field``.
+FLAGS = {"out": "--out", "positive": "--positive", "folds": "--folds", "sizes": "--sizes", "max_size": "--max-size",
+         "test_fraction": "--test-fraction", "seed": "--seed", "binarize": "--binarize"}
+
 
 class _Parser(argparse.ArgumentParser):
     def error(self, message: str):  # one line on stderr, exit 2
@@ -80,23 +84,43 @@ class _ProgressBar:
 
 
 def cmd_fit(args) -> int:
-    from pixelfit.ladder import LadderCancelled, conclude, prepare, run_ladder
+    from pixelfit.ladder import prepare
     from pixelfit.models import parse_families, parse_size_overrides, plan_rungs
-    from pixelfit.outputs import write_fit_outputs
+    from pixelfit.runfolder import OccupiedFolderError, RunFolder
 
-    ds = load_dataset(resolve_dataset_path(args.path))
+    source = resolve_dataset_path(args.path)
+    folder = RunFolder(args.out, [source], overwrite=args.overwrite)
+    try:
+        folder.check()  # before the import, so a misplaced --out is said at once
+    except OccupiedFolderError as exc:
+        raise PixelfitError(f"{exc} (--overwrite)", field=exc.field) from None
+    ds = load_dataset(source)
     binarizer = Binarizer.parse(args.binarize, invert=args.invert)
     prep = prepare(ds, binarizer, args.positive, args.test_fraction, args.seed)
     families = parse_families(args.families)
     rungs_plan = plan_rungs(families, prep.n_pixels, args.max_size, parse_size_overrides(args.sizes))
     if not rungs_plan:
         raise PixelfitError("no rung to train: --max-size and --sizes leave every family empty")
-    try:  # before training, so an unusable --out is said at once rather than after the ladder
-        Path(args.out).mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise PixelfitError(f"--out {args.out}: cannot create the folder ({exc.strerror or exc})") from None
     settings = {"families": families, "max_size": args.max_size, "sizes": args.sizes, "folds": args.folds,
                 "seed": args.seed, "target_precision": args.target_precision, "target_recall": args.target_recall}
+    try:  # the lock is held from before training until the run is in place
+        folder.open()
+    except OccupiedFolderError as exc:
+        raise PixelfitError(f"{exc} (--overwrite)", field=exc.field) from None
+    except OSError as exc:
+        raise PixelfitError(f"{args.out}: cannot create the folder ({exc.strerror or exc})", field="out") from None
+    try:
+        for note in folder.notes:
+            print(f"note: {note}", file=sys.stderr)
+        return _fit_into(args, folder, ds, prep, rungs_plan, settings)
+    finally:
+        folder.close()
+
+
+def _fit_into(args, folder, ds, prep, rungs_plan, settings) -> int:
+    from pixelfit.ladder import LadderCancelled, conclude, run_ladder
+    from pixelfit.outputs import write_fit_outputs
+
     h, w = prep.shape
     print(f"{ds.source}: {len(ds)} patches of {h}x{w}; detecting {prep.positive!r} against {prep.negative!r}; "
           f"{len(prep.y_train)} train / {len(prep.y_test)} held-out"
@@ -118,8 +142,9 @@ def cmd_fit(args) -> int:
         bar.close()
     recommended = conclude(done_rungs, prep.y_test) if done_rungs else None
     if args.rules and done_rungs:
-        _write_rules(args.out, prep, done_rungs)
-    summary = write_fit_outputs(args.out, prep, done_rungs, recommended, settings, cancelled)
+        _write_rules(folder.staging, prep, done_rungs)
+    summary = write_fit_outputs(folder.staging, prep, done_rungs, recommended, settings, cancelled)
+    folder.commit()
     print(ladder_table(summary))
     if recommended is not None:
         print(f"recommended: {recommended.key} (smallest rung within one standard error of the best CV F1)")
@@ -127,6 +152,8 @@ def cmd_fit(args) -> int:
         print("no recommendation: it needs cross-validation (--folds of at least 2)")
     print(f"wrote {args.out}/summary.json, summary.csv, split.csv, ladder.png, heatmaps/"
           f"{', rules/' if args.rules and done_rungs else ''}")
+    if folder.previous is not None:
+        print(f"the earlier content of {args.out} is kept in {folder.previous}")
     if cancelled:
         print(f"interrupted: {len(done_rungs)} of {len(rungs_plan)} rungs finished and were written", file=sys.stderr)
         return EXIT_INCOMPLETE
@@ -291,7 +318,12 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Train the ladder of models by size on the binarized patches; write "
                        "summary.json, summary.csv, split.csv, ladder.png and heatmaps/ into --out.")
     f.add_argument("path", help="folder of patches, .npz file, or a demo set name (e.g. bottle-caps)")
-    f.add_argument("--out", required=True, help="output folder (created if missing)")
+    f.add_argument("--out", required=True, metavar="DIR",
+                   help="output folder (created if missing). A run is written beside it and swapped in whole "
+                        "when it ends; an earlier run there is kept as DIR.previous. Refused while another run "
+                        "writes DIR, and when DIR is inside the input (or holds it)")
+    f.add_argument("--overwrite", action="store_true",
+                   help="accept a non-empty DIR that is not a pixelfit run folder (moved to DIR.previous)")
     f.add_argument("--binarize", default="otsu", metavar="METHOD",
                    help="fixed:T (pixel >= T), otsu (one threshold over the training set), otsu-patch, "
                         "mean-patch; default otsu")
@@ -374,8 +406,12 @@ def main(argv: list[str] | None = None) -> int:
         return int(args.func(args))
     except PixelfitError as exc:
         # One line, whatever a message quoted from a file or a library held.
-        print(f"pixelfit: {' '.join(str(exc).splitlines())}", file=sys.stderr)
+        flag = FLAGS.get(exc.field or "")
+        print(f"pixelfit: {f'{flag}: ' if flag else ''}{' '.join(str(exc).splitlines())}", file=sys.stderr)
         return EXIT_BAD_INPUT
+    except KeyboardInterrupt:  # outside the ladder (which keeps finished rungs): nothing half-written stays
+        print("pixelfit: interrupted", file=sys.stderr)
+        return EXIT_INCOMPLETE
     except BrokenPipeError:
         return EXIT_OK
     except OSError as exc:  # a write that failed (disk full, folder gone): what was written before stays

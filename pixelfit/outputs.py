@@ -17,8 +17,8 @@ from pixelfit.data import raw_fingerprint
 from pixelfit.ladder import Prepared, Rung
 from pixelfit.models import FAMILIES
 from pixelfit.plots import heatmap_png, ladder_png
+from pixelfit.runfolder import SUMMARY_FORMAT
 
-SUMMARY_FORMAT = "pixelfit-ladder-summary"
 SUMMARY_VERSION = 1
 
 
