@@ -84,7 +84,7 @@ class _ProgressBar:
 
 
 def cmd_fit(args) -> int:
-    from pixelfit.ladder import prepare
+    from pixelfit.ladder import effective_folds, prepare
     from pixelfit.models import parse_families, parse_size_overrides, plan_rungs
     from pixelfit.runfolder import OccupiedFolderError, RunFolder
 
@@ -99,6 +99,7 @@ def cmd_fit(args) -> int:
     prep = prepare(ds, binarizer, args.positive, args.test_fraction, args.seed)
     families = parse_families(args.families)
     rungs_plan = plan_rungs(families, prep.n_pixels, args.max_size, parse_size_overrides(args.sizes))
+    effective_folds(prep.y_train, args.folds)  # refuse bad folds before anything is printed or locked
     if not rungs_plan:
         raise PixelfitError("no rung to train: --max-size and --sizes leave every family empty")
     settings = {"families": families, "max_size": args.max_size, "sizes": args.sizes, "folds": args.folds,
@@ -236,8 +237,11 @@ def cmd_apply(args) -> int:
     names = [n for n, k in zip(ds.names, keep) if k]
     labels = ds.labels[keep]
     labeled = bool(len(labels)) and all(lab != "" for lab in labels)
+    info = sys.stderr if not args.csv else sys.stdout
+    truth, mismatch = _apply_truth(rule, labels if labeled else None, args.positive)
     buf = io.StringIO()
     wr = csv.writer(buf, lineterminator="\n")
+    labeled = truth is not None
     wr.writerow(["path", "score", "prediction"] + (["label"] if labeled else []))
     for i, name in enumerate(names):
         row = [name, f"{scores[i]:.6g}", rule.positive if pred[i] else rule.negative]
@@ -246,20 +250,46 @@ def cmd_apply(args) -> int:
         write_text(args.csv, buf.getvalue())
     else:
         sys.stdout.write(buf.getvalue())
-    info = sys.stderr if not args.csv else sys.stdout
     print(f"applied {rule.family}-{rule.size} to {len(names)} patches: {int(pred.sum())} called {rule.positive!r}"
           + (f" (threshold {args.threshold:g})" if args.threshold is not None else ""), file=info)
     for s in ds.skipped:
         print(f"  skipped {s.path}: {s.reason}", file=info)
-    if labeled:
-        known = set(labels.tolist())
-        if rule.positive not in known:
-            print(f"no patch is labeled {rule.positive!r}; recall is undefined", file=info)
-        m = detection_metrics(labels == rule.positive, pred)
+    if mismatch:
+        print(mismatch, file=info)
+    if truth is not None:
+        if not truth.any():
+            print(f"no patch is labeled {args.positive or rule.positive!r}; recall is undefined", file=info)
+        m = detection_metrics(truth, pred)
         print(metrics_line("labels", m).strip(), file=info)
     if args.csv:
         print(f"wrote {args.csv}", file=info)
     return EXIT_OK
+
+
+def _apply_truth(rule, labels, positive: str | None):
+    """Which patches are truly the rule's positive class: (bool array or None, a note or None).
+
+    The folder's classes must be the rule's two (a pooled ``not-X`` negative takes any other
+    class), or ``positive`` names the folder class that stands for the rule's positive one;
+    otherwise the patches are scored as unlabelled, with a note saying why.
+    """
+    if labels is None:
+        if positive is not None:
+            raise PixelfitError("these patches carry no class labels, so no class can stand for the rule's "
+                                "positive one", field="positive")
+        return None, None
+    found = sorted(set(labels.tolist()))
+    if positive is not None:
+        if positive not in found:
+            raise PixelfitError(f"{positive!r} is not a class of these patches; classes found: {', '.join(found)}",
+                                field="positive")
+        return labels == positive, None
+    pooled = rule.negative == f"not-{rule.positive}"
+    if set(found) <= {rule.positive, rule.negative} or (pooled and rule.positive in found):
+        return labels == rule.positive, None
+    return None, (f"the patches' classes are {', '.join(map(repr, found))}, but the rule tells {rule.positive!r} "
+                  f"from {rule.negative!r}: scored as unlabelled (--positive NAME says which class is "
+                  f"{rule.positive!r})")
 
 
 def _subset_from_split(split_path: str, subset: str, names: list[str]):
@@ -358,6 +388,9 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--split", metavar="SPLIT_CSV", help="a split.csv from `pixelfit fit`; with --subset, apply to "
                    "that part only")
     a.add_argument("--subset", choices=("train", "test"), default="test", help="part of --split to use (test)")
+    a.add_argument("--positive", metavar="NAME", help="the class of these patches that stands for the rule's "
+                   "positive class (the others for its negative one); needed when the folder's classes are not "
+                   "the rule's two, which are otherwise scored as unlabelled")
     a.set_defaults(func=cmd_apply)
 
     e = sub.add_parser("export", help="export a rule file as C99 for firmware",

@@ -19,7 +19,15 @@ from sklearn.exceptions import ConvergenceWarning
 from sklearn.model_selection import StratifiedKFold
 from threadpoolctl import threadpool_limits
 
-from pixelfit.data import Binarizer, Dataset, binary_target, choose_positive, fingerprint, stratified_split
+from pixelfit.data import (
+    Binarizer,
+    Dataset,
+    binary_target,
+    check_seed,
+    choose_positive,
+    fingerprint,
+    stratified_split,
+)
 from pixelfit.errors import TrainingError
 from pixelfit.evaluate import (
     detection_metrics,
@@ -93,7 +101,12 @@ class Prepared:
 
 def prepare(dataset: Dataset, binarizer: Binarizer, positive: str | None = None,
             test_fraction: float = 0.25, seed: int = 0) -> Prepared:
-    """Pick the positive class, split (unless pre-split), fit the binarizer on training patches."""
+    """Pick the positive class, split (unless pre-split), fit the binarizer on training patches.
+
+    Refuses a binarization that makes every training pixel the same bit: every patch would be
+    blank (or full), and a whole ladder would be trained on nothing.
+    """
+    seed = check_seed(seed)
     pos, neg = choose_positive(dataset.counts, positive)
     y = binary_target(dataset, pos)
     if dataset.subset is not None:
@@ -107,8 +120,18 @@ def prepare(dataset: Dataset, binarizer: Binarizer, positive: str | None = None,
         raise TrainingError("the training part must hold patches of both classes")
     fitted = binarizer.fit(dataset.images[train_mask])
     B = fitted.transform(dataset.images).reshape(len(dataset), -1)
+    _refuse_uniform(B[train_mask], dataset.images[train_mask], fitted)
     return Prepared(dataset, fitted, pos, neg, test_mask, B[train_mask], y[train_mask], B[test_mask], y[test_mask],
                     None if presplit else test_fraction, seed, presplit)
+
+
+def _refuse_uniform(X_train: np.ndarray, images: np.ndarray, fitted: Binarizer) -> None:
+    if X_train.size and (X_train.all() or not X_train.any()):
+        lo, hi = int(images.min()), int(images.max())
+        why = (f"every training pixel has grey level {lo}, and no threshold splits them" if lo == hi else
+               f"the training patches hold grey levels from {lo} to {hi}; choose a threshold inside that range")
+        raise TrainingError(f"binarization {fitted.describe()} makes every training pixel {int(X_train.flat[0])}: {why}",
+                            field="binarize")
 
 
 @dataclass
@@ -182,7 +205,7 @@ def effective_folds(y: np.ndarray, folds: int) -> tuple[int, str | None]:
     if folds == 0:
         return 0, None
     if folds < 2:
-        raise TrainingError(f"--folds must be 0 (off) or at least 2, not {folds}")
+        raise TrainingError(f"cross-validation folds must be 0 (off) or at least 2, not {folds}", field="folds")
     smallest = int(min(np.sum(y), np.sum(~y)))
     if smallest >= folds:
         return folds, None
@@ -331,6 +354,7 @@ def run_ladder(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, see
 
 
 def _run(prep, rungs, folds, seed, cancel, target_precision, target_recall) -> Iterator[Progress]:
+    seed = check_seed(seed)
     folds, fold_note = effective_folds(prep.y_train, folds)
     notes = [n for n in (fold_note, identical_note(prep.X_train)) if n]
     per_rung = folds + 1

@@ -12,10 +12,10 @@ from pixelfit.data._import import (
     read_patch,
 )
 from pixelfit.data._paths import resolve_dataset_path
-from pixelfit.data._split import fingerprint, raw_fingerprint, stratified_split
+from pixelfit.data._split import check_seed, fingerprint, raw_fingerprint, stratified_split
 
 __all__ = [
     "METHODS", "Binarizer", "grey_histogram", "otsu_threshold", "MAX_SIDE", "Dataset", "Skipped", "binary_target",
     "choose_positive", "load_dataset", "load_for_apply", "read_patch", "resolve_dataset_path", "fingerprint", "raw_fingerprint",
-    "stratified_split",
+    "stratified_split", "check_seed",
 ]
