@@ -130,7 +130,7 @@ def _refuse_uniform(X_train: np.ndarray, images: np.ndarray, fitted: Binarizer) 
         lo, hi = int(images.min()), int(images.max())
         why = (f"every training pixel has grey level {lo}, and no threshold splits them" if lo == hi else
                f"the training patches hold grey levels from {lo} to {hi}; choose a threshold inside that range")
-        raise TrainingError(f"binarization {fitted.describe()} makes every training pixel {int(X_train.flat[0])}: {why}",
+        raise TrainingError(f"{fitted.describe()} makes every training pixel {int(X_train.flat[0])}: {why}",
                             field="binarize")
 
 

@@ -38,7 +38,7 @@ def test_threshold_beyond_every_grey_level_is_refused_before_the_ladder(rng, spe
         prepare(ds, Binarizer.parse(spec), seed=0)
     msg = str(info.value)
     assert info.value.field == "binarize"
-    assert msg.startswith(f"binarization {Binarizer.parse(spec).describe()} makes every training pixel 0")
+    assert msg.startswith(f"{Binarizer.parse(spec).describe()} makes every training pixel 0")
     # The grey range is that of the training patches (the held-out ones may reach further).
     train_lo, train_hi = (int(v) for v in msg.split("grey levels from ")[1].split(";")[0].split(" to "))
     assert lo <= train_lo <= train_hi <= hi and "--" not in msg
@@ -58,7 +58,7 @@ def test_blank_binarization_through_the_cli(rng, tmp_path, capsys):
     np.savez(path, images=ds.images, labels=ds.labels)
     assert main(["fit", str(path), "--out", str(tmp_path / "r"), "--binarize", "fixed:256"]) == 2
     err = _refusal(capsys)
-    assert err.startswith("pixelfit: --binarize: binarization fixed:256 makes every training pixel 0")
+    assert err.startswith("pixelfit: --binarize: fixed:256 makes every training pixel 0")
     assert not (tmp_path / "r").exists()
 
 

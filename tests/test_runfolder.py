@@ -16,11 +16,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import make_patches
 
 from pixelfit.cli import main
 from pixelfit.runfolder import RunFolder, is_run_folder
-
-from conftest import make_patches
 
 pytestmark = pytest.mark.skipif(os.name != "posix", reason="signals and process control as on POSIX")
 

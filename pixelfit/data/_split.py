@@ -8,7 +8,6 @@ import numpy as np
 
 from pixelfit.errors import TrainingError
 
-
 SEED_MAX = 2**32 - 1
 
 
