@@ -360,10 +360,10 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--invert", action="store_true", help="flip the bits after thresholding (dark objects)")
     f.add_argument("--positive", metavar="CLASS", help="class to detect (default: the less frequent class)")
     f.add_argument("--test-fraction", type=float, default=0.25, help="held-out share when not pre-split (0.25)")
-    f.add_argument("--seed", type=int, default=0, help="seed of the split, folds and models (0)")
+    f.add_argument("--seed", type=int, default=0, help="seed of the split, folds and models, 0 .. 2**32-1 (0)")
     f.add_argument("--families", metavar="LIST", help="comma-separated: constant,lut,nb,logistic,tree,mlp,memorize "
                    "(default all)")
-    f.add_argument("--max-size", type=int, metavar="K", help="largest size on every family's axis")
+    f.add_argument("--max-size", type=int, metavar="K", help="largest size on every family's axis (at least 1)")
     f.add_argument("--sizes", action="append", metavar="FAMILY=LIST", help="one family's sizes, e.g. lut=1,2,3,5")
     f.add_argument("--folds", type=int, default=5, help="cross-validation folds on the training part; 0 turns it off")
     f.add_argument("--target-precision", type=float, metavar="P", help="find the threshold meeting this precision")
