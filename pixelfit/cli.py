@@ -19,6 +19,10 @@ from pixelfit.text import answer_text, fmt, ladder_table, metrics_line, pixel_gr
 
 EXIT_OK, EXIT_INCOMPLETE, EXIT_BAD_INPUT = 0, 1, 2
 
+#: The flag of each setting a core refusal may name in its ``field``.
+FLAGS = {"out": "--out", "positive": "--positive", "folds": "--folds", "sizes": "--sizes", "max_size": "--max-size",
+         "test_fraction": "--test-fraction", "seed": "--seed", "binarize": "--binarize"}
+
 
 def resolve_dataset_path(path: str):
     """A folder, file or demo-set name; a demo set generated on first use is noted on stderr."""
@@ -127,7 +131,7 @@ def _add_split_options(p: argparse.ArgumentParser) -> None:
                         "default) keeps identical grey patches on one side of the split and of every CV fold; "
                         "stratified draws patches one by one")
     p.add_argument("--test-fraction", type=float, default=0.25, help="held-out share when not pre-split (0.25)")
-    p.add_argument("--seed", type=int, default=0, help="seed of the split, folds and models (0)")
+    p.add_argument("--seed", type=int, default=0, help="seed of the split, folds and models, 0 .. 2**32-1 (0)")
 
 
 class _ProgressBar:
@@ -156,28 +160,50 @@ class _ProgressBar:
 
 
 def cmd_fit(args) -> int:
-    from pixelfit.evaluate import apply_spec, parse_spec
-    from pixelfit.ladder import LadderCancelled, conclude, prepare, run_ladder, suspect_labels
+    from pixelfit.evaluate import parse_spec
+    from pixelfit.ladder import effective_folds, prepare
     from pixelfit.models import parse_families, parse_size_overrides, plan_rungs
-    from pixelfit.outputs import write_fit_outputs
+    from pixelfit.runfolder import OccupiedFolderError, RunFolder
 
     if args.spec is None and (args.confidence is not None or args.budget_bytes is not None):
         raise PixelfitError("--confidence and --budget-bytes go with --spec, e.g. --spec \"precision>=0.90,recall>=0.85\"")
     spec = None if args.spec is None else parse_spec(args.spec, 0.95 if args.confidence is None else args.confidence,
                                                       args.budget_bytes)
-    ds = load_dataset(resolve_dataset_path(args.path))
+    source = resolve_dataset_path(args.path)
+    folder = RunFolder(args.out, [source], overwrite=args.overwrite)
+    try:
+        folder.check()  # before the import, so a misplaced --out is said at once
+    except OccupiedFolderError as exc:
+        raise PixelfitError(f"{exc} (--overwrite)", field=exc.field) from None
+    ds = load_dataset(source)
     binarizer = Binarizer.parse(args.binarize, invert=args.invert)
     prep = prepare(ds, binarizer, args.positive, args.test_fraction, args.seed, args.split)
     families = parse_families(args.families)
     rungs_plan = plan_rungs(families, prep.n_pixels, args.max_size, parse_size_overrides(args.sizes))
+    effective_folds(prep.y_train, args.folds)  # refuse bad folds before anything is printed or locked
     if not rungs_plan:
         raise PixelfitError("no rung to train: --max-size and --sizes leave every family empty")
-    try:  # before training, so an unusable --out is said at once rather than after the ladder
-        Path(args.out).mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise PixelfitError(f"--out {args.out}: cannot create the folder ({exc.strerror or exc})") from None
     settings = {"families": families, "max_size": args.max_size, "sizes": args.sizes, "folds": args.folds,
                 "split": args.split, "seed": args.seed, "spec": args.spec}
+    try:  # the lock is held from before training until the run is in place
+        folder.open()
+    except OccupiedFolderError as exc:
+        raise PixelfitError(f"{exc} (--overwrite)", field=exc.field) from None
+    except OSError as exc:
+        raise PixelfitError(f"{args.out}: cannot create the folder ({exc.strerror or exc})", field="out") from None
+    try:
+        for note in folder.notes:
+            print(f"note: {note}", file=sys.stderr)
+        return _fit_into(args, folder, ds, prep, rungs_plan, settings, spec)
+    finally:
+        folder.close()
+
+
+def _fit_into(args, folder, ds, prep, rungs_plan, settings, spec) -> int:
+    from pixelfit.evaluate import apply_spec
+    from pixelfit.ladder import LadderCancelled, conclude, run_ladder, suspect_labels
+    from pixelfit.outputs import write_fit_outputs
+
     h, w = prep.shape
     check = prep.check
     assert check is not None
@@ -210,8 +236,9 @@ def cmd_fit(args) -> int:
     check.suspects = suspect_labels(prep, done_rungs)
     answer = apply_spec(done_rungs, prep.y_train, prep.y_test, spec)
     if args.rules and done_rungs:
-        _write_rules(args.out, prep, done_rungs)
-    summary = write_fit_outputs(args.out, prep, done_rungs, recommended, settings, cancelled, spec, answer)
+        _write_rules(folder.staging, prep, done_rungs)
+    summary = write_fit_outputs(folder.staging, prep, done_rungs, recommended, settings, cancelled, spec, answer)
+    folder.commit()
     print(ladder_table(summary))
     leak_free = [(f"{r['family']}-{r['size']}", r["held_out_without_leaked"]) for r in summary["rungs"]
                  if r.get("held_out_without_leaked")]
@@ -229,6 +256,8 @@ def cmd_fit(args) -> int:
         print("no recommendation: it needs cross-validation (--folds of at least 2)")
     print(f"wrote {args.out}/summary.json, summary.csv, split.csv, check.csv, ladder.png, heatmaps/"
           f"{', rules/' if args.rules and done_rungs else ''}")
+    if folder.previous is not None:
+        print(f"the earlier content of {args.out} is kept in {folder.previous}")
     if spec is not None:
         print(spec_table(summary))
         print(answer_text(summary))
@@ -326,8 +355,11 @@ def cmd_apply(args) -> int:
     names = [n for n, k in zip(ds.names, keep) if k]
     labels = ds.labels[keep]
     labeled = bool(len(labels)) and all(lab != "" for lab in labels)
+    info = sys.stderr if not args.csv else sys.stdout
+    truth, mismatch = _apply_truth(rule, labels if labeled else None, args.positive)
     buf = io.StringIO()
     wr = csv.writer(buf, lineterminator="\n")
+    labeled = truth is not None
     wr.writerow(["path", "score", "prediction"] + (["label"] if labeled else []))
     for i, name in enumerate(names):
         row = [name, f"{scores[i]:.6g}", rule.positive if pred[i] else rule.negative]
@@ -343,15 +375,42 @@ def cmd_apply(args) -> int:
           f"(score above {used})", file=info)
     for s in ds.skipped:
         print(f"  skipped {s.path}: {s.reason}", file=info)
-    if labeled:
-        known = set(labels.tolist())
-        if rule.positive not in known:
-            print(f"no patch is labeled {rule.positive!r}; recall is undefined", file=info)
-        m = detection_metrics(labels == rule.positive, pred)
+    if mismatch:
+        print(mismatch, file=info)
+    if truth is not None:
+        if not truth.any():
+            print(f"no patch is labeled {args.positive or rule.positive!r}; recall is undefined", file=info)
+        m = detection_metrics(truth, pred)
         print(metrics_line("labels", m).strip(), file=info)
     if args.csv:
         print(f"wrote {args.csv}", file=info)
     return EXIT_OK
+
+
+def _apply_truth(rule, labels, positive: str | None):
+    """Which patches are truly the rule's positive class: (bool array or None, a note or None).
+
+    The folder's classes must be the rule's two (a pooled ``not-X`` negative takes any other
+    class), or ``positive`` names the folder class that stands for the rule's positive one;
+    otherwise the patches are scored as unlabelled, with a note saying why.
+    """
+    if labels is None:
+        if positive is not None:
+            raise PixelfitError("these patches carry no class labels, so no class can stand for the rule's "
+                                "positive one", field="positive")
+        return None, None
+    found = sorted(set(labels.tolist()))
+    if positive is not None:
+        if positive not in found:
+            raise PixelfitError(f"{positive!r} is not a class of these patches; classes found: {', '.join(found)}",
+                                field="positive")
+        return labels == positive, None
+    pooled = rule.negative == f"not-{rule.positive}"
+    if set(found) <= {rule.positive, rule.negative} or (pooled and rule.positive in found):
+        return labels == rule.positive, None
+    return None, (f"the patches' classes are {', '.join(map(repr, found))}, but the rule tells {rule.positive!r} "
+                  f"from {rule.negative!r}: scored as unlabelled (--positive NAME says which class is "
+                  f"{rule.positive!r})")
 
 
 def _subset_from_split(split_path: str, subset: str, names: list[str]):
@@ -423,7 +482,12 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Train the ladder of models by size on the binarized patches; write "
                        "summary.json, summary.csv, split.csv, ladder.png and heatmaps/ into --out.")
     f.add_argument("path", help="folder of patches, .npz file, or a demo set name (e.g. bottle-caps)")
-    f.add_argument("--out", required=True, help="output folder (created if missing)")
+    f.add_argument("--out", required=True, metavar="DIR",
+                   help="output folder (created if missing). A run is written beside it and swapped in whole "
+                        "when it ends; an earlier run there is kept as DIR.previous. Refused while another run "
+                        "writes DIR, and when DIR is inside the input (or holds it)")
+    f.add_argument("--overwrite", action="store_true",
+                   help="accept a non-empty DIR that is not a pixelfit run folder (moved to DIR.previous)")
     f.add_argument("--binarize", default="otsu", metavar="METHOD",
                    help="fixed:T (pixel >= T), otsu (one threshold over the training set), otsu-patch, "
                         "mean-patch; default otsu")
@@ -432,7 +496,7 @@ def build_parser() -> argparse.ArgumentParser:
     _add_split_options(f)
     f.add_argument("--families", metavar="LIST", help="comma-separated: constant,lut,nb,logistic,tree,mlp,memorize "
                    "(default all)")
-    f.add_argument("--max-size", type=int, metavar="K", help="largest size on every family's axis")
+    f.add_argument("--max-size", type=int, metavar="K", help="largest size on every family's axis (at least 1)")
     f.add_argument("--sizes", action="append", metavar="FAMILY=LIST", help="one family's sizes, e.g. lut=1,2,3,5")
     f.add_argument("--folds", type=int, default=5, help="cross-validation folds on the training part; 0 turns it off")
     f.add_argument("--spec", metavar="SPEC", help="what the detector must reach on unseen patches, e.g. "
@@ -461,6 +525,9 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--split", metavar="SPLIT_CSV", help="a split.csv from `pixelfit fit`; with --subset, apply to "
                    "that part only")
     a.add_argument("--subset", choices=("train", "test"), default="test", help="part of --split to use (test)")
+    a.add_argument("--positive", metavar="NAME", help="the class of these patches that stands for the rule's "
+                   "positive class (the others for its negative one); needed when the folder's classes are not "
+                   "the rule's two, which are otherwise scored as unlabelled")
     a.set_defaults(func=cmd_apply)
 
     e = sub.add_parser("export", help="export a rule file as C99 for firmware",
@@ -514,8 +581,12 @@ def main(argv: list[str] | None = None) -> int:
         return int(args.func(args))
     except PixelfitError as exc:
         # One line, whatever a message quoted from a file or a library held.
-        print(f"pixelfit: {' '.join(str(exc).splitlines())}", file=sys.stderr)
+        flag = FLAGS.get(exc.field or "")
+        print(f"pixelfit: {f'{flag}: ' if flag else ''}{' '.join(str(exc).splitlines())}", file=sys.stderr)
         return EXIT_BAD_INPUT
+    except KeyboardInterrupt:  # outside the ladder (which keeps finished rungs): nothing half-written stays
+        print("pixelfit: interrupted", file=sys.stderr)
+        return EXIT_INCOMPLETE
     except BrokenPipeError:
         return EXIT_OK
     except OSError as exc:  # a write that failed (disk full, folder gone): what was written before stays

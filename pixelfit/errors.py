@@ -6,7 +6,17 @@ message is one line a user can act on; anything else escaping is a bug.
 
 
 class PixelfitError(Exception):
-    """Bad input or an impossible request; the message is meant for the user."""
+    """Bad input or an impossible request; the message is meant for the user.
+
+    ``field`` names the setting at fault in the core's own words (``"folds"``, ``"positive"``,
+    ``"out"`` ...), or is None; the message never names a control of one front end, and each
+    front end may put its own name for that setting in front (the CLI its flag, the window its
+    control's label).
+    """
+
+    def __init__(self, message: str = "", field: str | None = None) -> None:
+        super().__init__(message)
+        self.field = field
 
 
 class DatasetError(PixelfitError):

@@ -26,6 +26,7 @@ from pixelfit.data import (
     Dataset,
     binary_target,
     check_data,
+    check_seed,
     choose_positive,
     fingerprint,
     grey_groups,
@@ -125,9 +126,13 @@ def prepare(dataset: Dataset, binarizer: Binarizer, positive: str | None = None,
 
     ``split`` is ``group-duplicates`` (identical grey patches stay on one side; the same draw as
     ``stratified`` when there are none) or ``stratified``; a pre-split folder keeps its split.
+
+    Refuses a binarization that makes every training pixel the same bit: every patch would be
+    blank (or full), and a whole ladder would be trained on nothing.
     """
+    seed = check_seed(seed)
     if split not in SPLIT_METHODS:
-        raise TrainingError(f"--split must be one of {', '.join(SPLIT_METHODS)}, not {split!r}")
+        raise TrainingError(f"the split must be one of {', '.join(SPLIT_METHODS)}, not {split!r}", field="split")
     pos, neg = choose_positive(dataset.counts, positive)
     y = binary_target(dataset, pos)
     grey = grey_groups(dataset.images)
@@ -146,9 +151,19 @@ def prepare(dataset: Dataset, binarizer: Binarizer, positive: str | None = None,
         raise TrainingError("the training part must hold patches of both classes")
     fitted = binarizer.fit(dataset.images[train_mask])
     B = fitted.transform(dataset.images).reshape(len(dataset), -1)
+    _refuse_uniform(B[train_mask], dataset.images[train_mask], fitted)
     check = check_data(dataset.images, dataset.labels, y, pack_binarized(B), B.shape[1], test_mask, grey)
     return Prepared(dataset, fitted, pos, neg, test_mask, B[train_mask], y[train_mask], B[test_mask], y[test_mask],
                     None if presplit else test_fraction, seed, presplit, method, grey.ids, check)
+
+
+def _refuse_uniform(X_train: np.ndarray, images: np.ndarray, fitted: Binarizer) -> None:
+    if X_train.size and (X_train.all() or not X_train.any()):
+        lo, hi = int(images.min()), int(images.max())
+        why = (f"every training pixel has grey level {lo}, and no threshold splits them" if lo == hi else
+               f"the training patches hold grey levels from {lo} to {hi}; choose a threshold inside that range")
+        raise TrainingError(f"{fitted.describe()} makes every training pixel {int(X_train.flat[0])}: {why}",
+                            field="binarize")
 
 
 @dataclass
@@ -241,7 +256,7 @@ def effective_folds(y: np.ndarray, folds: int, groups: np.ndarray | None = None)
     if folds == 0:
         return 0, None
     if folds < 2:
-        raise TrainingError(f"--folds must be 0 (off) or at least 2, not {folds}")
+        raise TrainingError(f"cross-validation folds must be 0 (off) or at least 2, not {folds}", field="folds")
     if groups is not None:
         n_groups = len(np.unique(groups))
         if n_groups < folds:
@@ -391,6 +406,7 @@ def run_ladder(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, see
 
 
 def _run(prep, rungs, folds, seed, cancel) -> Iterator[Progress]:
+    seed = check_seed(seed)
     folds, fold_note = effective_folds(prep.y_train, folds, prep.train_groups)
     notes = [n for n in (fold_note, identical_note(prep.X_train)) if n]
     per_rung = folds + 1

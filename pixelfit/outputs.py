@@ -18,8 +18,8 @@ from pixelfit.evaluate import Spec
 from pixelfit.ladder import Prepared, Rung, leak_free_test
 from pixelfit.models import FAMILIES
 from pixelfit.plots import heatmap_png, ladder_png
+from pixelfit.runfolder import SUMMARY_FORMAT
 
-SUMMARY_FORMAT = "pixelfit-ladder-summary"
 SUMMARY_VERSION = 1
 
 

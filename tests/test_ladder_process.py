@@ -4,6 +4,7 @@ import multiprocessing
 import os
 import signal
 import time
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -151,7 +152,9 @@ def test_the_child_stops_when_its_caller_dies(tmp_path):
         "    next(gen)\n"
         "    print(multiprocessing.active_children()[0].pid, flush=True)\n"
         "    os._exit(0)\n")  # no cleanup at all, as if killed
-    out = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=120)
+    # The script lives elsewhere: point it at this checkout, not at whichever copy is installed.
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
+    out = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=120, env=env)
     pid = int(out.stdout.split()[-1])
     deadline = time.monotonic() + 30
     while time.monotonic() < deadline:

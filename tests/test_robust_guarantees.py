@@ -104,6 +104,9 @@ def test_report_write_failure_keeps_previous_report(small_npz, tmp_path, capsys,
     assert "could not finish" in err[-1] and "summary.json: No space left on device" in err[-1]
     assert (out / "summary.json").read_bytes() == before[Path("summary.json")]
     assert not [p for p in out.rglob("*") if p.name.endswith(".tmp")]
+    # The whole earlier run stays, not only its summary: the new one was never swapped in.
+    assert {p.relative_to(out): p.read_bytes() for p in out.rglob("*") if p.is_file()} == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["run", "small.npz"]
 
 
 def test_unusable_out_folder_refused_before_training(small_npz, tmp_path, capsys):

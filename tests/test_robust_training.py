@@ -77,7 +77,8 @@ def test_class_too_small_to_split_refused(rng, tmp_path, capsys):
 def test_folds_of_one_refused(rng, tmp_path, capsys):
     path = _save_npz(tmp_path / "ok.npz", _dataset(10, 30, rng))
     assert main(["fit", str(path), "--out", str(tmp_path / "r"), "--folds", "1"]) == 2
-    _one_line_refusal(capsys, "--folds must be 0 (off) or at least 2, not 1")
+    _one_line_refusal(capsys, "--folds: cross-validation folds must be 0 (off) or at least 2, not 1")
+    assert not (tmp_path / "r").exists()
 
 
 # ---- all patches identical ----------------------------------------------------------------------

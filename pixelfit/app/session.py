@@ -41,7 +41,7 @@ from pixelfit.data import FINDINGS, Binarizer, DataCheck, Dataset, grey_histogra
 from pixelfit.errors import PixelfitError
 from pixelfit.evaluate import Spec, apply_spec, detection_metrics
 from pixelfit.firmware import export_c
-from pixelfit.ladder import Prepared, Rung, conclude, prepare, suspect_labels
+from pixelfit.ladder import Prepared, Rung, conclude, effective_folds, prepare, suspect_labels
 from pixelfit.models import FAMILIES, FAMILY_ORDER, plan_rungs
 from pixelfit.outputs import error_curves
 from pixelfit.rulefile import load_rule, save_rung
@@ -97,6 +97,9 @@ def nearest_point(points: list[tuple[str, float, float]], x: float, y: float) ->
         return None
     return min(points, key=lambda p: (p[1] - x) ** 2 + (p[2] - y) ** 2)[0]
 
+#: The window's name for each setting a core refusal names in its ``field`` (the labels of the controls).
+CONTROL_LABELS = {"positive": "detect", "binarize": "binarization", "folds": "folds", "max_size": "largest size",
+                  "seed": "seed", "test_fraction": "held-out share", "out": "output folder"}
 
 #: A small ladder that trains in seconds on a laptop; the user widens it.
 DEFAULT_FAMILIES = ("constant", "lut", "nb", "logistic", "tree")
@@ -165,6 +168,11 @@ class Session:
     def say(self, text: str, error: bool = False) -> None:
         self._emit("message", text, error)
 
+    def refuse(self, exc: PixelfitError) -> None:
+        """A core refusal as an error message, led by the label of the control it concerns."""
+        label = CONTROL_LABELS.get(exc.field or "")
+        self.say(f"{label}: {exc}" if label else str(exc), True)
+
     # ---- data ---------------------------------------------------------------------------------
 
     def open(self, path: str | os.PathLike) -> bool:
@@ -175,7 +183,7 @@ class Session:
         try:
             ds = load_dataset(path)
         except PixelfitError as exc:
-            self.say(str(exc), True)
+            self.refuse(exc)
             return False
         except OSError as exc:  # a folder vanishing mid-import, a dead network share
             self.say(f"{path}: cannot read ({exc.strerror or exc})", True)
@@ -195,7 +203,7 @@ class Session:
         try:
             b = Binarizer(method, None if method != "fixed" else threshold, invert)
         except PixelfitError as exc:
-            self.say(str(exc), True)
+            self.refuse(exc)
             return False
         if b == self.binarizer:
             return True
@@ -219,16 +227,15 @@ class Session:
                                 self.split)
         except PixelfitError as exc:
             self.prep = None
-            self.say(str(exc), True)
+            self.refuse(exc)
         else:
             self.positive = self.prep.positive
         self._emit("prep")
 
     def binarized(self, indices: np.ndarray) -> np.ndarray:
         """Binarized patches of shape (len(indices), h, w), bool, with the current settings."""
-        if self.prep is None:
-            raise PixelfitError("no binarized patches: open a dataset first")
-        return self.prep.binarizer.transform(self.dataset.images[np.asarray(indices, dtype=np.intp)])
+        prep = self._require_prep()
+        return prep.binarizer.transform(prep.dataset.images[np.asarray(indices, dtype=np.intp)])
 
     def histogram(self) -> tuple[np.ndarray, np.ndarray | None]:
         """Grey-level counts of the training pixels, shape (256,), and the thresholds in use.
@@ -238,7 +245,7 @@ class Session:
         """
         if self.prep is None:
             return np.zeros(256, np.int64), None
-        train = self.dataset.images[~self.prep.test_mask]
+        train = self.prep.dataset.images[~self.prep.test_mask]
         counts = grey_histogram(train).astype(np.int64)
         b = self.prep.binarizer
         if b.method in ("fixed", "otsu"):
@@ -308,13 +315,19 @@ class Session:
             self.folds = int(folds)
         self._emit("settings")
 
-    def plan(self) -> list[tuple[str, int]]:
-        """The rungs a run would train with the current settings (raises PixelfitError)."""
+    def _require_prep(self) -> Prepared:
         if self.prep is None:
             raise PixelfitError("open a dataset (and choose a binarization that splits it) first")
+        return self.prep
+
+    def plan(self) -> list[tuple[str, int]]:
+        """The rungs a run would train with the current settings (raises PixelfitError)."""
+        return self._plan(self._require_prep())
+
+    def _plan(self, prep: Prepared) -> list[tuple[str, int]]:
         if not self.families:
             raise PixelfitError("choose at least one family")
-        rungs = plan_rungs(self.families, self.prep.n_pixels, self.max_size)
+        rungs = plan_rungs(self.families, prep.n_pixels, self.max_size)
         if not rungs:
             raise PixelfitError("no rung to train: the largest size leaves every family empty")
         return rungs
@@ -325,21 +338,23 @@ class Session:
             self.say("a ladder is already running", True)
             return None
         try:
-            plan = self.plan()
+            prep = self._require_prep()
+            plan = self._plan(prep)
+            effective_folds(prep.y_train, self.folds)  # a bad count is refused here, not in the trainer
         except PixelfitError as exc:
-            self.say(str(exc), True)
+            self.refuse(exc)
             return None
         self._clear_rungs()
-        self.run_prep = self.prep
-        if self.prep.check is not None and self.prep.check.suspects is not None:
-            self.prep.check.suspects = None  # the suspects of an earlier climb
+        self.run_prep = prep
+        if prep.check is not None and prep.check.suspects is not None:
+            prep.check.suspects = None  # the suspects of an earlier climb
             self._emit("check")
         self.planned = len(plan)
         self.running = True
         self.progress_state = (0, 0, "starting")
         self._emit("run")
-        self.say(f"climbing {len(plan)} rungs on {self.prep.binarizer.describe()} patches")
-        return RunSpec(self.prep, plan, self.folds, self.seed)
+        self.say(f"climbing {len(plan)} rungs on {prep.binarizer.describe()} patches")
+        return RunSpec(prep, plan, self.folds, self.seed)
 
     def report_progress(self, done: int, total: int, message: str) -> None:
         self.progress_state = (done, total, message)
@@ -353,6 +368,8 @@ class Session:
         climb starts); the user may pick any finished rung, and the recommended one is selected
         when the climb ends unless the user has chosen.
         """
+        if self.run_prep is None:
+            raise RuntimeError("a rung arrived outside a run (start_run was not called)")
         self.rungs.append(rung)
         self.recommended = conclude(self.rungs, self.run_prep.y_test)
         self.answer = apply_spec(self.rungs, self.run_prep.y_train, self.run_prep.y_test, self.spec)
@@ -493,8 +510,8 @@ class Session:
         r = self.selected
         if r is None:
             return None
-        if r.scored:
-            return r.test_scores > self.threshold  # one decision rule everywhere: score above the threshold
+        if r.test_scores is not None:
+            return np.asarray(r.test_scores > self.threshold)  # one decision rule everywhere: score above it
         return np.asarray(r.test_pred, bool)
 
     def threshold_metrics(self) -> dict | None:
@@ -504,7 +521,7 @@ class Session:
         each computation is some milliseconds of Python on the GUI thread.
         """
         pred = self.held_out_predictions()
-        if pred is None:
+        if pred is None or self.run_prep is None:
             return None
         last = self._at_threshold
         if last is None or last[0] is not self.selected or last[1] != self.threshold or last[2] is not self.run_prep:
@@ -526,7 +543,7 @@ class Session:
     def misses(self) -> tuple[np.ndarray, np.ndarray]:
         """Dataset rows of held-out false positives and false negatives of the selected rung."""
         pred = self.held_out_predictions()
-        if pred is None:
+        if pred is None or self.run_prep is None:
             return np.zeros(0, np.intp), np.zeros(0, np.intp)
         rows = np.flatnonzero(self.run_prep.test_mask)
         y = self.run_prep.y_test
@@ -572,7 +589,7 @@ class Session:
         try:
             return write()
         except PixelfitError as exc:
-            self.say(str(exc), True)
+            self.refuse(exc)
         except OSError as exc:
             self.say(f"{path}: cannot write ({exc.strerror or exc})", True)
         return None
@@ -580,14 +597,15 @@ class Session:
     def export_selected_c(self, header_path: str | os.PathLike) -> tuple[Path, Path] | None:
         """Save the selected rung beside ``header_path`` (same stem, .json) and export C from it."""
         header_path = Path(header_path)
+        r = self.selected
         saved = self.save_selected(header_path.with_suffix(".json"))
-        if saved is None:
+        if saved is None or r is None:
             return None
         written = self._write(header_path, lambda: export_c(load_rule(saved), header_path))
         if written is None:
             return None
         header, vectors = written
-        self.say(f"exported {self.selected.key} as C to {header} (test vectors {vectors})")
+        self.say(f"exported {r.key} as C to {header} (test vectors {vectors})")
         return Path(header), Path(vectors)
 
 

@@ -21,11 +21,11 @@ from pixelfit.data._import import (
     load_for_apply,
     read_patch,
 )
-from pixelfit.data._split import SPLIT_METHODS, fingerprint, grouped_split, raw_fingerprint, stratified_split
+from pixelfit.data._split import SPLIT_METHODS, check_seed, fingerprint, grouped_split, raw_fingerprint, stratified_split
 
 __all__ = [
     "METHODS", "Binarizer", "grey_histogram", "otsu_threshold", "MAX_SIDE", "Dataset", "Skipped", "binary_target",
     "choose_positive", "load_dataset", "load_for_apply", "read_patch", "fingerprint", "raw_fingerprint",
     "stratified_split", "SPLIT_METHODS", "grouped_split", "CHECK_KEYS", "FINDINGS", "DataCheck", "Groups",
-    "check_csv_rows", "check_data", "grey_groups", "pack_binarized",
+    "check_csv_rows", "check_data", "grey_groups", "pack_binarized", "check_seed",
 ]

@@ -629,7 +629,8 @@ def choose_positive(counts: dict[str, int], positive: str | None = None) -> tupl
     """
     if positive is not None:
         if positive not in counts:
-            raise DatasetError(f"--positive {positive!r} is not a class here; classes are: {', '.join(counts)}")
+            raise DatasetError(f"the class to detect, {positive!r}, is not a class here; classes are: {', '.join(counts)}",
+                               field="positive")
     else:
         positive = min(counts, key=lambda c: (counts[c], c))
     others = [c for c in counts if c != positive]

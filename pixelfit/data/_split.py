@@ -8,6 +8,15 @@ import numpy as np
 
 from pixelfit.errors import TrainingError
 
+SEED_MAX = 2**32 - 1
+
+
+def check_seed(seed) -> int:
+    """The seed as an int, or a refusal: scikit-learn and numpy take 0 .. 2**32-1."""
+    if isinstance(seed, bool) or not isinstance(seed, int | np.integer) or not 0 <= seed <= SEED_MAX:
+        raise TrainingError(f"the seed must be a whole number from 0 to 2**32-1 ({SEED_MAX}), not {seed!r}", field="seed")
+    return int(seed)
+
 
 def stratified_split(y: np.ndarray, test_fraction: float = 0.25, seed: int = 0,
                      class_names: dict | None = None) -> np.ndarray:
@@ -17,7 +26,8 @@ def stratified_split(y: np.ndarray, test_fraction: float = 0.25, seed: int = 0,
     ``y`` to the names used in messages (for a boolean target, the class each value stands for).
     """
     if not 0 < test_fraction < 1:
-        raise TrainingError(f"--test-fraction must be between 0 and 1, not {test_fraction}")
+        raise TrainingError(f"the held-out share must be between 0 and 1, not {test_fraction}", field="test_fraction")
+    seed = check_seed(seed)
     y = np.asarray(y)
     classes, counts = np.unique(y, return_counts=True)
     if counts.min() < 2:
@@ -32,7 +42,8 @@ def stratified_split(y: np.ndarray, test_fraction: float = 0.25, seed: int = 0,
     try:
         _, test_idx = train_test_split(idx, test_size=test_fraction, random_state=seed, stratify=y)
     except ValueError as exc:
-        raise TrainingError(f"cannot split {len(y)} patches with --test-fraction {test_fraction}: {exc}") from None
+        raise TrainingError(f"cannot split {len(y)} patches with a held-out share of {test_fraction}: {exc}",
+                            field="test_fraction") from None
     mask = np.zeros(len(y), bool)
     mask[test_idx] = True
     return mask

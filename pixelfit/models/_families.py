@@ -252,13 +252,14 @@ def parse_size_overrides(items: list[str] | None) -> dict[str, list[int]]:
         fam, sep, rest = item.partition("=")
         fam = fam.strip()
         if not sep or fam not in FAMILIES:
-            raise TrainingError(f"--sizes takes FAMILY=LIST with a family from {', '.join(FAMILY_ORDER)}; got {item!r}")
+            raise TrainingError(f"sizes are given as FAMILY=LIST with a family from {', '.join(FAMILY_ORDER)}; got {item!r}",
+                                field="sizes")
         try:
             sizes = sorted({int(s) for s in rest.split(",") if s.strip()})
         except ValueError:
-            raise TrainingError(f"--sizes {item!r}: sizes must be whole numbers") from None
+            raise TrainingError(f"sizes {item!r}: sizes must be whole numbers", field="sizes") from None
         if not sizes or min(sizes) < 1:
-            raise TrainingError(f"--sizes {item!r}: give at least one size, each at least 1")
+            raise TrainingError(f"sizes {item!r}: give at least one size, each at least 1", field="sizes")
         out[fam] = sizes
     return out
 
@@ -269,6 +270,9 @@ def plan_rungs(families: list[str], n_pixels: int, max_size: int | None = None,
 
     ``max_size`` caps every size axis except the two fixed ends (constant and memorize).
     """
+    if max_size is not None and max_size < 1:
+        raise TrainingError(f"the largest size must be at least 1 (sizes count from 1), not {max_size}",
+                            field="max_size")
     overrides = overrides or {}
     rungs: list[tuple[str, int]] = []
     for name in families:
