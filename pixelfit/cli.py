@@ -80,8 +80,8 @@ class _ProgressBar:
 
 
 def cmd_fit(args) -> int:
+    from pixelfit.families import parse_families, parse_size_overrides, plan_rungs
     from pixelfit.ladder import LadderCancelled, conclude, prepare, run_ladder
-    from pixelfit.models import parse_families, parse_size_overrides, plan_rungs
     from pixelfit.outputs import write_fit_outputs
 
     ds = load_dataset(resolve_dataset_path(args.path))

@@ -31,16 +31,11 @@ from pixelfit.evaluate import (
     one_standard_error_choice,
     operating_points,
     permutation_map,
+    quantization_check,
     threshold_for_target,
 )
-from pixelfit.models import (
-    FAMILIES,
-    LutRule,
-    SearchCancelled,
-    native_importance,
-    pixels_used,
-    size_figures,
-)
+from pixelfit.families import FAMILIES
+from pixelfit.models import LutRule, SearchCancelled
 
 CancelFn = Callable[[], bool]
 
@@ -134,6 +129,10 @@ class Rung:
     recommended: bool = False
     versus_smaller: dict | None = None
     rule_file: str | None = None
+    #: firmware cost of the integer-only predictor: {flash_bytes, ram_bytes, ops}
+    cost: dict | None = None
+    #: the integer-only predictor against the floating-point model on the held-out part
+    quantized: dict | None = None
 
     @property
     def key(self) -> str:
@@ -161,6 +160,8 @@ class Rung:
             "versus_smaller": self.versus_smaller,
             "operating": self.operating,
             "rule_file": self.rule_file,
+            "cost": self.cost,
+            "quantized": self.quantized,
             "pixels": None if self.pixels is None else [[i // w, i % w] for i in self.pixels],
             "notes": self.notes,
             "seconds": round(self.seconds, 3),
@@ -286,11 +287,16 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     test_pred = np.asarray(est.predict(prep.X_test), bool)
     train = detection_metrics(y, train_pred)
     test = detection_metrics(prep.y_test, test_pred)
-    figures = size_figures(family, est, size, prep.n_pixels)
+    figures = fam.size_figures(est, size, prep.n_pixels)
     bound = generalization_bound(family, figures, error_rate(y, train_pred), len(y), prep.n_pixels)
-    used = pixels_used(family, est, prep.n_pixels)
+    # The rung as its rule file will hold it: what it reads, and the integer predictor that ships.
+    model = fam.decode(fam.model_section(est, size, prep.shape), prep.shape)
+    used = model.pixels_used()
+    integer = model.integer()
+    quantized = {"threshold": None, "exact": not integer.facts, "fixed_point": integer.facts or None,
+                 "on": "held-out", **quantization_check(test_pred, integer.predict(prep.X_test), prep.y_test)}
     importance = {
-        "native": native_importance(family, est, X, y, prep.shape),
+        "native": fam.native_importance(est, X, y, prep.shape),
         "permutation": permutation_map(est, prep.X_test, prep.y_test, prep.shape, pixels=used, seed=seed),
     }
     test_scores = _score(est, prep.X_test) if fam.scored else None
@@ -309,11 +315,9 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
             else:
                 target = {"threshold": None, "chosen_on": choose_on, "met": False}
         operating = {"test_points": operating_points(prep.y_test, test_scores), "target": target}
-    search = None
-    if family == "lut":
-        search = {"method": est.search_, "candidates": est.n_candidates_}
     return Rung(family, size, est, train, test, cv, figures, bound, used, importance, test_pred, test_scores,
-                operating, search, notes, time.perf_counter() - t0)
+                operating, fam.search_facts(est), notes, time.perf_counter() - t0, cost=integer.cost(),
+                quantized=quantized)
 
 
 def run_ladder(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, seed: int = 0,

@@ -14,8 +14,8 @@ from pixelfit import __version__
 from pixelfit._atomic import write_bytes, write_json, write_text
 from pixelfit.conventions import BOUND_CONVENTION, UNDEFINED_CONVENTION
 from pixelfit.data import raw_fingerprint
+from pixelfit.families import FAMILIES
 from pixelfit.ladder import Prepared, Rung
-from pixelfit.models import FAMILIES
 from pixelfit.plots import heatmap_png, ladder_png
 
 SUMMARY_FORMAT = "pixelfit-ladder-summary"

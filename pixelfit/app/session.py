@@ -34,9 +34,9 @@ import numpy as np
 from pixelfit.data import Binarizer, Dataset, grey_histogram, load_dataset
 from pixelfit.errors import PixelfitError
 from pixelfit.evaluate import detection_metrics, threshold_for_target
+from pixelfit.families import FAMILIES, FAMILY_ORDER, plan_rungs
 from pixelfit.firmware import export_c
 from pixelfit.ladder import Prepared, Rung, conclude, prepare
-from pixelfit.models import FAMILIES, FAMILY_ORDER, plan_rungs
 from pixelfit.outputs import error_curves
 from pixelfit.rulefile import load_rule, save_rung
 

@@ -8,8 +8,8 @@ from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
 from pixelfit.app.session import Session
 from pixelfit.app.widgets import Listens, Throttled
 from pixelfit.errors import PixelfitError
+from pixelfit.families import FAMILIES, FAMILY_ORDER
 from pixelfit.ladder import Rung
-from pixelfit.models import FAMILIES, FAMILY_ORDER
 
 #: One colour per family, so a family keeps its colour in the plot and the table.
 FAMILY_RGB = {"constant": (110, 110, 110), "lut": (46, 92, 160), "nb": (40, 150, 70), "logistic": (150, 60, 150),
