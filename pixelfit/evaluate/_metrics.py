@@ -102,7 +102,7 @@ def quantization_check(float_pred: np.ndarray, integer_pred: np.ndarray, y_true:
 
     Returns ``{'n', 'agree', 'agreement', 'test', 'f1_float', 'f1_loss', 'loses_f1'}``: the
     share of patches where both give the same call, and with labels the integer predictor's own
-    detection metrics, the F1 it loses against the float model (None where either F1 is
+    detection metrics (:func:`detection_metrics`), the F1 it loses against the float model (None where either F1 is
     undefined) and whether that loss exceeds :data:`QUANTIZED_F1_TOLERANCE` (one point).
     """
     fp = np.asarray(float_pred, bool)
@@ -116,6 +116,6 @@ def quantization_check(float_pred: np.ndarray, integer_pred: np.ndarray, y_true:
         q = detection_metrics(y, ip)
         f = detection_metrics(y, fp)
         loss = None if q["f1"] is None or f["f1"] is None else f["f1"] - q["f1"]
-        out.update(test={k: q[k] for k in ("tp", "fp", "fn", "tn", "precision", "recall", "f1")},
+        out.update(test=q,
                    f1_float=f["f1"], f1_loss=loss, loses_f1=None if loss is None else bool(loss > QUANTIZED_F1_TOLERANCE))
     return out
