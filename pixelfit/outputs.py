@@ -17,6 +17,7 @@ from pixelfit.data import raw_fingerprint
 from pixelfit.families import FAMILIES
 from pixelfit.ladder import Prepared, Rung
 from pixelfit.plots import heatmap_png, ladder_png
+from pixelfit.text import FIELDS
 
 SUMMARY_FORMAT = "pixelfit-ladder-summary"
 SUMMARY_VERSION = 1
@@ -62,9 +63,7 @@ def build_summary(prep: Prepared, rungs: list[Rung], recommended: Rung | None, s
     }
 
 
-CSV_COLUMNS = ["family", "size", "search", "parameters", "log2_class_size", "vc_dim", "train_f1", "cv_f1_mean",
-               "cv_f1_std", "test_precision", "test_precision_lo", "test_precision_hi", "test_recall",
-               "test_recall_lo", "test_recall_hi", "test_f1", "test_mcc", "bound", "recommended"]
+CSV_COLUMNS = [f.name for f in FIELDS]
 
 
 def _csv_value(v) -> str:
@@ -80,14 +79,7 @@ def summary_csv(summary: dict) -> str:
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(CSV_COLUMNS)
     for r in summary["rungs"]:
-        t = r["test"]
-        pci = t["precision_ci"] or [None, None]
-        rci = t["recall_ci"] or [None, None]
-        row = [r["family"], r["size"], (r["search"] or {}).get("method"), r["parameters"], r["log2_class_size"],
-               r["vc_dim"], r["train"]["f1"], (r["cv"] or {}).get("f1_mean"), (r["cv"] or {}).get("f1_std"),
-               t["precision"], pci[0], pci[1], t["recall"], rci[0], rci[1], t["f1"], t["mcc"],
-               (r["bound"] or {}).get("error_upper"), r["recommended"]]
-        w.writerow([_csv_value(v) for v in row])
+        w.writerow([_csv_value(f.value(r)) for f in FIELDS])
     return buf.getvalue()
 
 

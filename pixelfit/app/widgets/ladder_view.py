@@ -8,8 +8,9 @@ from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
 from pixelfit.app.session import Session
 from pixelfit.app.widgets import Listens, Throttled
 from pixelfit.errors import PixelfitError
-from pixelfit.families import FAMILIES, FAMILY_ORDER
+from pixelfit.families import FAMILY_ORDER
 from pixelfit.ladder import Rung
+from pixelfit.text import COLUMNS, rung_cells
 
 #: One colour per family, so a family keeps its colour in the plot and the table.
 FAMILY_RGB = {"constant": (110, 110, 110), "lut": (46, 92, 160), "nb": (40, 150, 70), "logistic": (150, 60, 150),
@@ -26,40 +27,11 @@ COLUMN_FIT_INTERVAL_MS = 1000
 LEFT_AXIS_WIDTH = 46
 
 
-def _num(v, digits: int = 3) -> str:
-    return "–" if v is None else f"{v:.{digits}f}"
-
-
-def _with_ci(v, ci) -> str:
-    if v is None:
-        return "–"
-    return f"{v:.3f}" + ("" if not ci else f" [{ci[0]:.2f}, {ci[1]:.2f}]")
-
-
-def _log2h(v) -> str:
-    if v is None:
-        return "–"
-    return f"{v:.1f}" if v < 1e5 else f"{v:.3g}"
-
-
-#: (header, tooltip, cell text of a rung)
-COLUMNS: list[tuple[str, str, callable]] = [
-    ("rung", "family-size; ★ marks the recommended rung",
-     lambda r: ("★ " if r.recommended else "") + r.key),
-    ("size", "the family's size axis", lambda r: f"{r.size} {FAMILIES[r.family].size_name}"),
-    ("log2 |H|", "log2 of the number of rules in the family's class at this size (finite classes)",
-     lambda r: _log2h(r.figures["log2_class_size"])),
-    ("params", "parameters of the fitted rule", lambda r: str(r.figures["parameters"])),
-    ("train F1", "F1 on the training part", lambda r: _num(r.train["f1"])),
-    ("CV F1 ± sd", "cross-validated F1 on the training part, mean ± fold standard deviation",
-     lambda r: "–" if not r.cv else f"{r.cv['f1_mean']:.3f} ± {r.cv['f1_std']:.3f}"),
-    ("held-out P [95 % CI]", "precision on held-out patches with its Wilson interval",
-     lambda r: _with_ci(r.test["precision"], r.test["precision_ci"])),
-    ("held-out R [95 % CI]", "recall on held-out patches with its Wilson interval",
-     lambda r: _with_ci(r.test["recall"], r.test["recall_ci"])),
-    ("bound", "upper bound on the true error rate at 95 % confidence",
-     lambda r: "–" if r.bound is None else _num(r.bound["error_upper"])),
-]
+def _cells(r: Rung, shape: tuple[int, int]) -> list[str]:
+    """The row of a rung: the same columns as the command line's table (pixelfit.text.COLUMNS)."""
+    cells = rung_cells(r.summary(shape))
+    cells[0] = ("★ " if r.recommended else "") + cells[0]
+    return cells
 
 
 def _tooltip(r: Rung) -> str:
@@ -71,9 +43,9 @@ def _tooltip(r: Rung) -> str:
     return "\n".join(lines)
 
 
-def _row_look(r: Rung) -> tuple[tuple[str, ...], bool, str]:
+def _row_look(r: Rung, shape: tuple[int, int]) -> tuple[tuple[str, ...], bool, str]:
     """Everything a rung's row shows: the cell texts, the recommended mark, the tooltip."""
-    return tuple(cell(r) for _, _, cell in COLUMNS), bool(r.recommended), _tooltip(r)
+    return tuple(_cells(r, shape)), bool(r.recommended), _tooltip(r)
 
 
 class LadderTableModel(QtGui.QStandardItemModel):
@@ -88,9 +60,9 @@ class LadderTableModel(QtGui.QStandardItemModel):
 
     def __init__(self, session: Session, parent=None):
         super().__init__(0, len(COLUMNS), parent)
-        for c, (head, tip, _) in enumerate(COLUMNS):
-            item = QtGui.QStandardItem(head)
-            item.setToolTip(tip)
+        for c, col in enumerate(COLUMNS):
+            item = QtGui.QStandardItem(col.header)
+            item.setToolTip(col.tooltip + ("; ★ marks the recommended rung" if c == 0 else ""))
             self.setHorizontalHeaderItem(c, item)
         self.session = session
         self.rows: list[Rung] = []
@@ -105,6 +77,8 @@ class LadderTableModel(QtGui.QStandardItemModel):
     def follow(self) -> bool:
         """Catch up with ``session.rungs``; True when that took a reset rather than appended rows."""
         now = self.session.rungs
+        # Rungs exist only once the session has prepared its data; the shape names their pixels.
+        shape = self.session.prep.shape if self.session.prep is not None else (1, 1)
         if len(now) < len(self.rows) or any(a is not b for a, b in zip(self.rows, now)):
             self.setRowCount(0)
             self.rows, self._looks = [], []
@@ -112,7 +86,7 @@ class LadderTableModel(QtGui.QStandardItemModel):
         else:
             reset = False
         for i, r in enumerate(now):
-            look = _row_look(r)
+            look = _row_look(r, shape)
             if i == len(self.rows):
                 self.appendRow(self._items(r, look))
                 self.rows.append(r)
