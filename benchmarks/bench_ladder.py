@@ -21,8 +21,8 @@ import numpy as np
 sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
 from pixelfit.data import Binarizer, Dataset
+from pixelfit.families import FAMILY_ORDER, plan_rungs
 from pixelfit.ladder import prepare, run_ladder
-from pixelfit.models import FAMILY_ORDER, plan_rungs
 
 
 def make_dataset(n: int, side: int, seed: int) -> Dataset:

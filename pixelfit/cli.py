@@ -161,8 +161,8 @@ class _ProgressBar:
 
 def cmd_fit(args) -> int:
     from pixelfit.evaluate import parse_spec
+    from pixelfit.families import parse_families, parse_size_overrides, plan_rungs
     from pixelfit.ladder import effective_folds, prepare
-    from pixelfit.models import parse_families, parse_size_overrides, plan_rungs
     from pixelfit.runfolder import OccupiedFolderError, RunFolder
 
     if args.spec is None and (args.confidence is not None or args.budget_bytes is not None):
@@ -201,7 +201,7 @@ def cmd_fit(args) -> int:
 
 def _fit_into(args, folder, ds, prep, rungs_plan, settings, spec) -> int:
     from pixelfit.evaluate import apply_spec
-    from pixelfit.ladder import LadderCancelled, conclude, run_ladder, suspect_labels
+    from pixelfit.ladder import LadderCancelled, conclude, measure_integer, run_ladder, suspect_labels
     from pixelfit.outputs import write_fit_outputs
 
     h, w = prep.shape
@@ -235,6 +235,8 @@ def _fit_into(args, folder, ds, prep, rungs_plan, settings, spec) -> int:
     recommended = conclude(done_rungs, prep.y_test) if done_rungs else None
     check.suspects = suspect_labels(prep, done_rungs)
     answer = apply_spec(done_rungs, prep.y_train, prep.y_test, spec)
+    for r in done_rungs:  # what ships is the integer predictor at the threshold the spec chose
+        measure_integer(r, prep.X_test, prep.y_test)
     if args.rules and done_rungs:
         _write_rules(folder.staging, prep, done_rungs)
     summary = write_fit_outputs(folder.staging, prep, done_rungs, recommended, settings, cancelled, spec, answer)
@@ -430,18 +432,55 @@ def _subset_from_split(split_path: str, subset: str, names: list[str]):
 
 
 def cmd_export(args) -> int:
-    from pixelfit.firmware import export_c
+    import numpy as np
+
+    from pixelfit.evaluate import QUANTIZED_F1_TOLERANCE, quantization_check
+    from pixelfit.firmware import default_vectors, export_c
     from pixelfit.rulefile import load_rule
 
     rule = load_rule(args.rule)
-    vectors = None
+    if args.threshold is not None and not 0.0 <= args.threshold <= 1.0:
+        raise PixelfitError(f"--threshold {args.threshold:g}: a score threshold lies between 0 and 1")
+    threshold = args.threshold if args.threshold is not None else rule.operating_threshold
+    X = labels = None
+    where = "the generated test vectors"
     if args.vectors_from:
         from pixelfit.data import load_for_apply
 
         ds = load_for_apply(resolve_dataset_path(args.vectors_from), rule.shape)
-        vectors = rule.binarize(ds.images[: args.max_vectors])
-    h, v = export_c(rule, args.c, vectors)
+        keep = np.ones(len(ds), bool)
+        if args.split:
+            keep = _subset_from_split(args.split, args.subset, ds.names)
+            where = f"the {int(keep.sum())} {args.subset} patches of {args.split}"
+        else:
+            where = f"the {int(keep.sum())} patches of {args.vectors_from}"
+        X = rule.binarize(ds.images[keep])
+        lab = ds.labels[keep]
+        if len(lab) and all(v in (rule.positive, rule.negative) for v in lab):
+            labels = lab == rule.positive
+    vectors = X[: args.max_vectors] if X is not None else default_vectors(rule)
+    h, v = export_c(rule, args.c, vectors, threshold)
     print(f"wrote {h} and {v}")
+    integer = rule.integer(threshold)
+    c = integer.cost()
+    o = c["ops"]
+    print(f"integer-only predictor: {c['flash_bytes']} bytes of flash tables, {c['ram_bytes']} bytes of locals, "
+          f"at most {o['total']} operations per patch ({o['pixel_reads']} pixel reads, {o['additions']} additions, "
+          f"{o['multiplications']} multiplications, {o['comparisons']} comparisons)")
+    print("decision: " + ("the model's own" if threshold is None else f"score >= {threshold:g}")
+          + ("; exact (no rounding)" if not integer.facts else "; fixed point, see the header's comment"))
+    measured = X if X is not None else vectors
+    check = quantization_check(rule.predict(measured, threshold), integer.predict(measured), labels)
+    share = "-" if check["agreement"] is None else f"{check['agreement']:.1%}"
+    print(f"agrees with the floating-point model on {check['agree']} of {check['n']} patches ({share}) of {where}")
+    if check["test"] is not None:
+        print(metrics_line("integer", check["test"]).strip())
+        print(f"  (the floating-point model: F1 {fmt(check['f1_float'])})")
+        if check["loses_f1"]:
+            print(f"warning: the integer predictor loses {100 * check['f1_loss']:.1f} points of F1 against the "
+                  f"floating-point model (more than {100 * QUANTIZED_F1_TOLERANCE:.0f})")
+    elif X is not None:
+        print("no metrics: the patches are not all labelled with the rule's two classes")
     return EXIT_OK
 
 
@@ -530,14 +569,20 @@ def build_parser() -> argparse.ArgumentParser:
                    "the rule's two, which are otherwise scored as unlabelled")
     a.set_defaults(func=cmd_apply)
 
-    e = sub.add_parser("export", help="export a rule file as C99 for firmware",
-                       description="Write a self-contained C99 header with a predict function over a row-major "
-                       "patch of 0/1 bytes, and OUT_vectors.h with test vectors.")
+    e = sub.add_parser("export", help="export a rule file as integer-only C99 for firmware",
+                       description="Write a self-contained, integer-only C99 header with a predict function over "
+                       "a row-major patch of 0/1 bytes, and OUT_vectors.h with test vectors; print its flash, RAM "
+                       "and operations, and how the integer predictor compares with the floating-point model.")
     e.add_argument("rule")
     e.add_argument("--c", required=True, metavar="OUT.h", help="header to write")
     e.add_argument("--vectors-from", metavar="PATH", help="take test vectors from these patches (default: "
                    "generated patches)")
     e.add_argument("--max-vectors", type=int, default=256, help="most test vectors taken from --vectors-from (256)")
+    e.add_argument("--split", metavar="SPLIT_CSV", help="a split.csv from `pixelfit fit`; with --subset, take "
+                   "that part of --vectors-from only (measure on held-out patches)")
+    e.add_argument("--subset", choices=("train", "test"), default="test", help="part of --split to use (test)")
+    e.add_argument("--threshold", type=float, metavar="T", help="call positive when score >= T (default: the "
+                   "rule's recorded operating threshold, else its own decision)")
     e.set_defaults(func=cmd_export)
     g = sub.add_parser("gui", help="open the desktop application",
                        description="Open the desktop application on a folder, .npz file or demo set "

@@ -46,15 +46,10 @@ from pixelfit.evaluate import (
     one_standard_error_choice,
     operating_points,
     permutation_map,
+    quantization_check,
 )
-from pixelfit.models import (
-    FAMILIES,
-    LutRule,
-    SearchCancelled,
-    native_importance,
-    pixels_used,
-    size_figures,
-)
+from pixelfit.families import FAMILIES, Model
+from pixelfit.models import LutRule, SearchCancelled
 
 CancelFn = Callable[[], bool]
 
@@ -185,8 +180,6 @@ class Rung:
     operating: dict | None
     search: dict | None = None
     oof_scores: np.ndarray | None = None  # out-of-fold scores of the training patches, when every one has one
-    #: Firmware cost ``{flash_bytes, ram_bytes, ops}``; None until a cost is computed for the rung.
-    cost: dict | None = None
     #: Scores the operating threshold is chosen on (out-of-fold CV scores, or training scores), and which.
     choice_scores: np.ndarray | None = None
     chosen_on: str | None = None
@@ -197,6 +190,12 @@ class Rung:
     recommended: bool = False
     versus_smaller: dict | None = None
     rule_file: str | None = None
+    #: firmware cost of the integer-only predictor: {flash_bytes, ram_bytes, ops}
+    cost: dict | None = None
+    #: the integer-only predictor against the floating-point model on the held-out part
+    quantized: dict | None = None
+    #: the rung decoded as its rule file holds it (numpy only): what it reads, its integer predictor
+    model: Model | None = None
 
     @property
     def key(self) -> str:
@@ -234,6 +233,7 @@ class Rung:
             "cost": self.cost,
             "spec": self.spec,
             "rule_file": self.rule_file,
+            "quantized": self.quantized,
             "pixels": None if self.pixels is None else [[i // w, i % w] for i in self.pixels],
             "notes": self.notes,
             "seconds": round(self.seconds, 3),
@@ -368,11 +368,13 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     test_pred = np.asarray(est.predict(prep.X_test), bool)
     train = detection_metrics(y, train_pred)
     test = detection_metrics(prep.y_test, test_pred)
-    figures = size_figures(family, est, size, prep.n_pixels)
+    figures = fam.size_figures(est, size, prep.n_pixels)
     bound = generalization_bound(family, figures, error_rate(y, train_pred), len(y), prep.n_pixels)
-    used = pixels_used(family, est, prep.n_pixels)
+    # The rung as its rule file will hold it: what it reads, and the integer predictor that ships.
+    model = fam.decode(fam.model_section(est, size, prep.shape), prep.shape)
+    used = model.pixels_used()
     importance = {
-        "native": native_importance(family, est, X, y, prep.shape),
+        "native": fam.native_importance(est, X, y, prep.shape),
         "permutation": permutation_map(est, prep.X_test, prep.y_test, prep.shape, pixels=used, seed=seed),
     }
     # Every family gives a score (the constant's is its training rate); see pixelfit.evaluate._spec
@@ -383,13 +385,25 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
         chosen_on = "cv" if folds and not np.isnan(oof).any() else "train"
         choice = oof if chosen_on == "cv" else _scores_of(est, X)
         operating = {"test_points": operating_points(prep.y_test, test_scores)}
-    search = None
-    if family == "lut":
-        search = {"method": est.search_, "candidates": est.n_candidates_}
-    oof_ok = oof is not None and folds and not np.isnan(oof).any()
-    return Rung(family, size, est, train, test, cv, figures, bound, used, importance, test_pred, test_scores,
-                operating, search, oof if oof_ok else None, notes=notes, seconds=time.perf_counter() - t0,
-                choice_scores=choice, chosen_on=chosen_on)
+    oof_ok = folds and not np.isnan(oof).any()
+    rung = Rung(family, size, est, train, test, cv, figures, bound, used, importance, test_pred, test_scores,
+                operating, fam.search_facts(est), oof if oof_ok else None, notes=notes,
+                seconds=time.perf_counter() - t0, choice_scores=choice, chosen_on=chosen_on, model=model)
+    measure_integer(rung, prep.X_test, prep.y_test)
+    return rung
+
+
+def measure_integer(rung: Rung, X_test: np.ndarray, y_test: np.ndarray) -> None:
+    """Cost and held-out agreement of the integer-only predictor that ships, at the rung's operating
+    threshold (call again when a spec has chosen another threshold)."""
+    t = rung.operating_point["threshold"]
+    if rung.model is None:
+        return
+    integer = rung.model.integer(t)
+    float_pred = rung.test_pred if rung.test_scores is None else np.asarray(rung.test_scores > t)
+    rung.cost = integer.cost()
+    rung.quantized = {"threshold": t, "exact": not integer.facts, "fixed_point": integer.facts or None,
+                      "on": "held-out", **quantization_check(float_pred, integer.predict(X_test), y_test)}
 
 
 def run_ladder(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, seed: int = 0,

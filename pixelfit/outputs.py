@@ -15,10 +15,11 @@ from pixelfit._atomic import write_bytes, write_json, write_text
 from pixelfit.conventions import BOUND_CONVENTION, UNDEFINED_CONVENTION
 from pixelfit.data import check_csv_rows, raw_fingerprint
 from pixelfit.evaluate import Spec
+from pixelfit.families import FAMILIES
 from pixelfit.ladder import Prepared, Rung, leak_free_test
-from pixelfit.models import FAMILIES
 from pixelfit.plots import heatmap_png, ladder_png
 from pixelfit.runfolder import SUMMARY_FORMAT
+from pixelfit.text import FIELDS
 
 SUMMARY_VERSION = 1
 
@@ -76,13 +77,7 @@ def build_summary(prep: Prepared, rungs: list[Rung], recommended: Rung | None, s
     }
 
 
-CSV_COLUMNS = ["family", "size", "search", "parameters", "log2_class_size", "vc_dim", "train_f1", "cv_f1_mean",
-               "cv_f1_std", "test_precision", "test_precision_lo", "test_precision_hi", "test_recall",
-               "test_recall_lo", "test_recall_hi", "test_f1", "test_mcc", "bound", "recommended",
-               "flash_bytes", "ram_bytes", "ops", "operating_threshold", "operating_chosen_on",
-               "spec_threshold", "spec_chosen_on", "spec_cv_precision", "spec_cv_recall", "spec_test_tp",
-               "spec_test_fp", "spec_test_fn", "spec_test_tn", "spec_test_precision", "spec_test_recall",
-               "spec_test_precision_lower", "spec_test_recall_lower", "spec_verdict"]
+CSV_COLUMNS = [f.name for f in FIELDS]
 
 
 def _csv_value(v) -> str:
@@ -98,22 +93,7 @@ def summary_csv(summary: dict) -> str:
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(CSV_COLUMNS)
     for r in summary["rungs"]:
-        t = r["test"]
-        pci = t["precision_ci"] or [None, None]
-        rci = t["recall_ci"] or [None, None]
-        row = [r["family"], r["size"], (r["search"] or {}).get("method"), r["parameters"], r["log2_class_size"],
-               r["vc_dim"], r["train"]["f1"], (r["cv"] or {}).get("f1_mean"), (r["cv"] or {}).get("f1_std"),
-               t["precision"], pci[0], pci[1], t["recall"], rci[0], rci[1], t["f1"], t["mcc"],
-               (r["bound"] or {}).get("error_upper"), r["recommended"]]
-        cost = r["cost"] or {}
-        row += [cost.get("flash_bytes"), cost.get("ram_bytes"), cost.get("ops"), r["operating"]["threshold"],
-                r["operating"]["chosen_on"]]
-        sp = r["spec"] or {}
-        cv, st = sp.get("cv") or {}, sp.get("test") or {}
-        row += [sp.get("threshold"), sp.get("chosen_on"), cv.get("precision"), cv.get("recall")]
-        row += [st.get(k) for k in ("tp", "fp", "fn", "tn", "precision", "recall", "precision_lower", "recall_lower")]
-        row.append(sp.get("verdict"))
-        w.writerow([_csv_value(v) for v in row])
+        w.writerow([_csv_value(f.value(r)) for f in FIELDS])
     return buf.getvalue()
 
 

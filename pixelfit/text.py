@@ -1,6 +1,13 @@
-"""Text rendering shared by the commands: the ladder table, pixel grids, metric lines."""
+"""Text rendering shared by the commands and the window: the rung columns (one spec for the
+command line's table, summary.csv and the window's table), pixel grids, metric lines."""
 
 from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+from pixelfit.families import FAMILIES
+from pixelfit.models import BEAM_MARK, BEAM_NOTE, is_beam
 
 
 def fmt(v, digits: int = 3) -> str:
@@ -15,28 +22,122 @@ def ci_text(ci) -> str:
     return "" if not ci else f" [{ci[0]:.2f},{ci[1]:.2f}]"
 
 
-def ladder_table(summary: dict) -> str:
-    from pixelfit.models import BEAM_MARK, BEAM_NOTE, is_beam
+def _ci_part(m: dict, key: str, end: int):
+    ci = m.get(f"{key}_ci")
+    return None if not ci else ci[end]
 
-    head = (f"{'rung':<14} {'log2|H|':>8} {'params':>7} {'train F1':>8} {'CV F1':>13} "
-            f"{'held-out P [95% CI]':>21} {'held-out R [95% CI]':>21} {'F1':>6} {'bound':>6}")
+
+def log2_text(v) -> str:
+    """log2 |H| as the rung table shows it (huge classes in scientific notation)."""
+    if v is None:
+        return "-"
+    return f"{v:.1f}" if v < 1e5 else f"{v:.3g}"
+
+
+def _with_ci(m: dict, key: str) -> str:
+    return f"{fmt(m[key])}{ci_text(m[key + '_ci'])}"
+
+
+@dataclass(frozen=True)
+class Field:
+    """One column of summary.csv: its name and its value in a rung's summary entry."""
+
+    name: str
+    value: Callable[[dict], object]
+
+
+@dataclass(frozen=True)
+class Column:
+    """One column of the rung table (the command line's and the window's): header, tooltip, cell text."""
+
+    header: str
+    tooltip: str
+    text: Callable[[dict], str]
+
+
+def _spec_test(key: str) -> Callable[[dict], object]:
+    return lambda r: ((r.get("spec") or {}).get("test") or {}).get(key)
+
+
+#: The columns of summary.csv, from a rung's entry in summary.json (:meth:`pixelfit.ladder.Rung.summary`).
+FIELDS: list[Field] = [
+    Field("family", lambda r: r["family"]),
+    Field("size", lambda r: r["size"]),
+    Field("search", lambda r: (r["search"] or {}).get("method")),
+    Field("parameters", lambda r: r["parameters"]),
+    Field("log2_class_size", lambda r: r["log2_class_size"]),
+    Field("vc_dim", lambda r: r["vc_dim"]),
+    Field("flash_bytes", lambda r: (r.get("cost") or {}).get("flash_bytes")),
+    Field("ram_bytes", lambda r: (r.get("cost") or {}).get("ram_bytes")),
+    Field("ops", lambda r: ((r.get("cost") or {}).get("ops") or {}).get("total")),
+    Field("train_f1", lambda r: r["train"]["f1"]),
+    Field("cv_f1_mean", lambda r: (r["cv"] or {}).get("f1_mean")),
+    Field("cv_f1_std", lambda r: (r["cv"] or {}).get("f1_std")),
+    Field("test_precision", lambda r: r["test"]["precision"]),
+    Field("test_precision_lo", lambda r: _ci_part(r["test"], "precision", 0)),
+    Field("test_precision_hi", lambda r: _ci_part(r["test"], "precision", 1)),
+    Field("test_recall", lambda r: r["test"]["recall"]),
+    Field("test_recall_lo", lambda r: _ci_part(r["test"], "recall", 0)),
+    Field("test_recall_hi", lambda r: _ci_part(r["test"], "recall", 1)),
+    Field("test_f1", lambda r: r["test"]["f1"]),
+    Field("test_mcc", lambda r: r["test"]["mcc"]),
+    Field("integer_agreement", lambda r: (r.get("quantized") or {}).get("agreement")),
+    Field("integer_test_f1", lambda r: ((r.get("quantized") or {}).get("test") or {}).get("f1")),
+    Field("bound", lambda r: (r["bound"] or {}).get("error_upper")),
+    Field("recommended", lambda r: r["recommended"]),
+    Field("operating_threshold", lambda r: (r.get("operating") or {}).get("threshold")),
+    Field("operating_chosen_on", lambda r: (r.get("operating") or {}).get("chosen_on")),
+    Field("spec_threshold", lambda r: (r.get("spec") or {}).get("threshold")),
+    Field("spec_chosen_on", lambda r: (r.get("spec") or {}).get("chosen_on")),
+    Field("spec_cv_precision", lambda r: ((r.get("spec") or {}).get("cv") or {}).get("precision")),
+    Field("spec_cv_recall", lambda r: ((r.get("spec") or {}).get("cv") or {}).get("recall")),
+] + [Field(f"spec_test_{k}", _spec_test(k))
+     for k in ("tp", "fp", "fn", "tn", "precision", "recall", "precision_lower", "recall_lower")] + [
+    Field("spec_verdict", lambda r: (r.get("spec") or {}).get("verdict")),
+]
+
+#: The columns of the rung table, from a rung's entry in summary.json.
+COLUMNS: list[Column] = [
+    Column("rung", "family-size; (beam) marks a truth table found by a beam search, not by trying every pixel set",
+           lambda r: f"{r['family']}-{r['size']}" + (BEAM_MARK if is_beam(r.get("search")) else "")),
+    Column("size", "the family's size axis",
+           lambda r: f"{r['size']} {FAMILIES[r['family']].size_name}" if r["family"] in FAMILIES else str(r["size"])),
+    Column("log2|H|", "log2 of the number of rules in the family's class at this size (finite classes)",
+           lambda r: log2_text(r["log2_class_size"])),
+    Column("params", "parameters of the fitted rule", lambda r: str(r["parameters"])),
+    Column("flash B", "bytes of constant tables of the integer-only C export (pixelfit export)",
+           lambda r: fmt((r.get("cost") or {}).get("flash_bytes"))),
+    Column("train F1", "F1 on the training part", lambda r: fmt(r["train"]["f1"])),
+    Column("CV F1", "cross-validated F1 on the training part, mean ± fold standard deviation",
+           lambda r: "-" if not r["cv"] else f"{r['cv']['f1_mean']:.3f}±{r['cv']['f1_std']:.3f}"),
+    Column("held-out P [95% CI]", "precision on held-out patches with its Wilson interval",
+           lambda r: _with_ci(r["test"], "precision")),
+    Column("held-out R [95% CI]", "recall on held-out patches with its Wilson interval",
+           lambda r: _with_ci(r["test"], "recall")),
+    Column("F1", "F1 on held-out patches", lambda r: fmt(r["test"]["f1"])),
+    Column("bound", "upper bound on the true error rate at 95 % confidence",
+           lambda r: "-" if r["bound"] is None else f"{r['bound']['error_upper']:.3f}"),
+    Column("spec", "verdict on the spec: threshold chosen on CV scores, judged by the held-out lower bounds",
+           lambda r: "-" if not r.get("spec") else r["spec"]["verdict"]),
+]
+
+
+def rung_cells(r: dict) -> list[str]:
+    """The rung table's cells of one rung's summary entry."""
+    return [c.text(r) for c in COLUMNS]
+
+
+def ladder_table(summary: dict) -> str:
+    rows = [rung_cells(r) for r in summary["rungs"]]
+    widths = [max([len(c.header)] + [len(row[i]) for row in rows]) for i, c in enumerate(COLUMNS)]
+    head = " ".join(c.header.ljust(widths[0]) if i == 0 else c.header.rjust(widths[i]) for i, c in enumerate(COLUMNS))
     lines = [head, "-" * len(head)]
-    for r in summary["rungs"]:
-        key = f"{r['family']}-{r['size']}" + (BEAM_MARK if is_beam(r.get("search")) else "")
-        cv = "-" if not r["cv"] else f"{r['cv']['f1_mean']:.3f}±{r['cv']['f1_std']:.3f}"
-        t = r["test"]
-        p = f"{fmt(t['precision'])}{ci_text(t['precision_ci'])}"
-        rc = f"{fmt(t['recall'])}{ci_text(t['recall_ci'])}"
-        log2h = r["log2_class_size"]
-        log2h_s = "-" if log2h is None else (f"{log2h:.1f}" if log2h < 1e6 else f"{log2h:.2g}")
-        bound = "-" if r["bound"] is None else f"{r['bound']['error_upper']:.3f}"
-        mark = "  <- recommended" if r["recommended"] else ""
-        sig = ""
+    for r, row in zip(summary["rungs"], rows):
+        cells = " ".join(v.ljust(widths[0]) if i == 0 else v.rjust(widths[i]) for i, v in enumerate(row))
         vs = r.get("versus_smaller")
-        if vs and vs["significant"]:
-            sig = " *"
-        lines.append(f"{key:<14} {log2h_s:>8} {r['parameters']:>7} {fmt(r['train']['f1']):>8} {cv:>13} "
-                     f"{p:>21} {rc:>21} {fmt(t['f1']):>6} {bound:>6}{sig}{mark}")
+        sig = " *" if vs and vs["significant"] else ""
+        mark = "  <- recommended" if r["recommended"] else ""
+        lines.append(f"{cells}{sig}{mark}")
     lines.append("* significantly better than the next smaller rung of its family on held-out patches "
                  "(McNemar, p < 0.05)")
     if any(is_beam(r.get("search")) for r in summary["rungs"]):

@@ -6,8 +6,9 @@ import pytest
 from pixelfit.data import Binarizer, Dataset
 from pixelfit.errors import TrainingError
 from pixelfit.evaluate import Spec, apply_spec
+from pixelfit.families import parse_size_overrides, plan_rungs
 from pixelfit.ladder import conclude, prepare, run_ladder, train_rung
-from pixelfit.models import LutRule, parse_size_overrides, plan_rungs
+from pixelfit.models import LutRule
 
 
 def brute_force_lut(X, y, k):

@@ -44,7 +44,7 @@ def test_core_imports_without_qt():
 
 def test_rule_files_load_without_scikit_learn_or_scipy():
     # Rule files promise numpy-only prediction: loading and predicting must not pull in the trainers.
-    code = ("import sys\nimport pixelfit.rulefile, pixelfit.firmware\n"
+    code = ("import sys\nimport pixelfit.rulefile, pixelfit.firmware, pixelfit.families\n"
             "print(','.join(sorted(m for m in sys.modules if m.split('.')[0] in ('sklearn', 'scipy'))))\n")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout.strip()
     assert out == "", f"pixelfit.rulefile loaded {out}"
@@ -83,9 +83,11 @@ def test_layer_contracts_hold():
     # an arrow running up: evaluation code reaching into the ladder
     ("evaluate/_importance.py", "from pixelfit.ladder import Prepared as _x"),
     # models once took class sizes from evaluate
-    ("models/_families.py", "from pixelfit.evaluate import hoeffding_bound as _x"),
+    ("models/_estimators.py", "from pixelfit.evaluate import hoeffding_bound as _x"),
+    # a family knows its estimator and its C code, never the ladder or the export around it
+    ("families/lut.py", "from pixelfit.firmware import export_c as _x"),
     # data is the bottom layer of the core
-    ("data/_split.py", "from pixelfit.models import FAMILIES as _x"),
+    ("data/_split.py", "from pixelfit.models import LutRule as _x"),
 ])
 def test_layer_contracts_catch_a_violation(tmp_path, module, statement):
     shutil.copytree(ROOT, tmp_path / "pixelfit", ignore=shutil.ignore_patterns("__pycache__"))

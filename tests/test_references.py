@@ -530,7 +530,7 @@ def test_halfspaces_on_k_bits_shatter_k_plus_1_points_and_no_more(k):
 
 
 def test_nb_rung_is_linear_in_its_bits_and_reports_h_k_plus_1(rng):
-    from pixelfit.models import FAMILIES, size_figures
+    from pixelfit.families import FAMILIES
 
     X = rng.random((300, 25)) < 0.4
     y = (X[:, 3] & ~X[:, 7]) ^ (rng.random(300) < 0.1)
@@ -542,7 +542,7 @@ def test_nb_rung_is_linear_in_its_bits_and_reports_h_k_plus_1(rng):
         design = np.hstack([bits, np.ones((len(X), 1))])
         coef, *_ = np.linalg.lstsq(design, logit, rcond=None)
         assert np.max(np.abs(design @ coef - logit)) < 1e-9  # affine in the k selected bits
-        assert size_figures("nb", est, k, 25)["vc_dim"] == k + 1
+        assert FAMILIES["nb"].size_figures(est, k, 25)["vc_dim"] == k + 1
 
 
 @pytest.mark.parametrize("k,m", [(1, 200), (4, 60), (9, 10), (10, 10), (40, 10), (64, 11)])

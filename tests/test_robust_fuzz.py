@@ -280,8 +280,8 @@ def _use(rule) -> None:
         text = header_text(rule, "r") + vectors_text(rule, "r", default_vectors(rule, 4), "r.h")
     except RuleFileError:
         return
-    # Nothing from the file may leave a C comment and become code.
-    assert "injected" not in text.replace("* / int injected; /*", "")
+    # Nothing from the file may leave a C comment and become code ("/*" and "*/" are broken up).
+    assert "injected" not in text.replace("* / int injected; / *", "")
 
 
 def _parse_or_refuse(doc) -> None:

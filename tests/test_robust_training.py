@@ -11,8 +11,8 @@ import pixelfit.ladder as ladder_mod
 from pixelfit.cli import main
 from pixelfit.data import Binarizer, Dataset
 from pixelfit.errors import TrainingError
+from pixelfit.families import plan_rungs
 from pixelfit.ladder import LadderCancelled, conclude, effective_folds, prepare, run_ladder
-from pixelfit.models import plan_rungs
 
 
 def _dataset(n_pos: int, n_neg: int, rng, shape=(6, 6)) -> Dataset:

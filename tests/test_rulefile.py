@@ -1,8 +1,6 @@
 import copy
 import csv
 import json
-import shutil
-import subprocess
 
 import numpy as np
 import pytest
@@ -10,7 +8,6 @@ import pytest
 from pixelfit.cli import main
 from pixelfit.data import Binarizer, Dataset
 from pixelfit.errors import RuleFileError
-from pixelfit.firmware import export_c
 from pixelfit.ladder import prepare, train_rung
 from pixelfit.rulefile import load_rule, parse_rule, rule_document, save_rung
 
@@ -162,25 +159,3 @@ def test_apply_refuses_wrong_shape_per_file(presplit_folder, tmp_path, capsys):
     captured = capsys.readouterr()
     assert "good.png" in captured.out and "odd.png" not in captured.out
     assert "odd.png: patch is 9x9, expected 8x8" in captured.err
-
-
-@pytest.mark.skipif(shutil.which("cc") is None and shutil.which("gcc") is None, reason="no C compiler")
-@pytest.mark.parametrize("family", [f for f, _ in FAMILY_SIZES])
-def test_c_export_compiles_and_agrees(prepared, rungs, family, tmp_path):
-    cc = shutil.which("cc") or shutil.which("gcc")
-    rule = parse_rule(rule_document(prepared, rungs[family]))
-    X = np.vstack([prepared.X_train, prepared.X_test])
-    header, vectors = export_c(rule, tmp_path / f"{family}_rule.h", vectors=X)
-    ident = header.stem
-    P = ident.upper()
-    (tmp_path / "main.c").write_text(
-        f'#include <stdio.h>\n#include "{vectors.name}"\n'
-        f"int main(void) {{\n  int i;\n  for (i = 0; i < {P}_N_VECTORS; ++i) {{\n"
-        f'    printf("%d\\n", {ident}_predict({ident}_vector_patches[i]));\n  }}\n  return 0;\n}}\n')
-    exe = tmp_path / "check"
-    build = subprocess.run([cc, "-Wall", "-Wextra", "-Werror", "-std=c99", "-pedantic", "-O1", "-o", str(exe),
-                            str(tmp_path / "main.c"), "-lm"], capture_output=True, text=True)
-    assert build.returncode == 0, build.stderr
-    got = np.array([int(v) for v in subprocess.run([str(exe)], capture_output=True, text=True,
-                                                   check=True).stdout.split()], bool)
-    assert np.array_equal(got, rule.predict(X))

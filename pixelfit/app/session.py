@@ -40,9 +40,9 @@ import numpy as np
 from pixelfit.data import FINDINGS, Binarizer, DataCheck, Dataset, grey_histogram, load_dataset
 from pixelfit.errors import PixelfitError
 from pixelfit.evaluate import Spec, apply_spec, detection_metrics
+from pixelfit.families import FAMILIES, FAMILY_ORDER, plan_rungs
 from pixelfit.firmware import export_c
-from pixelfit.ladder import Prepared, Rung, conclude, effective_folds, prepare, suspect_labels
-from pixelfit.models import FAMILIES, FAMILY_ORDER, plan_rungs
+from pixelfit.ladder import Prepared, Rung, conclude, effective_folds, measure_integer, prepare, suspect_labels
 from pixelfit.outputs import error_curves
 from pixelfit.rulefile import load_rule, save_rung
 
@@ -373,6 +373,8 @@ class Session:
         self.rungs.append(rung)
         self.recommended = conclude(self.rungs, self.run_prep.y_test)
         self.answer = apply_spec(self.rungs, self.run_prep.y_train, self.run_prep.y_test, self.spec)
+        for r in self.rungs:
+            measure_integer(r, self.run_prep.X_test, self.run_prep.y_test)
         self._emit("rungs")
 
     def end_run(self, outcome: str, detail: str = "") -> None:
@@ -492,6 +494,8 @@ class Session:
         self.spec = spec
         if self.run_prep is not None:
             self.answer = apply_spec(self.rungs, self.run_prep.y_train, self.run_prep.y_test, spec)
+            for r in self.rungs:
+                measure_integer(r, self.run_prep.X_test, self.run_prep.y_test)
         if self.selected is not None and self.selected.key not in self._thresholds:
             self.threshold, self.threshold_chosen_on = self._threshold_of(self.selected)
             self._emit("threshold")

@@ -15,11 +15,13 @@ from pixelfit.evaluate._compare import (
 )
 from pixelfit.evaluate._importance import mean_difference_map, mutual_information_map, permutation_map
 from pixelfit.evaluate._metrics import (
+    QUANTIZED_F1_TOLERANCE,
     clopper_pearson_interval,
     confusion,
     detection_metrics,
     error_rate,
     metrics_from_counts,
+    quantization_check,
     wilson_interval,
 )
 from pixelfit.evaluate._spec import (
@@ -43,6 +45,6 @@ __all__ = [
     "mcnemar", "mcnemar_from_counts", "one_standard_error_choice", "operating_points",
     "mean_difference_map", "mutual_information_map", "permutation_map", "clopper_pearson_interval", "confusion",
     "detection_metrics", "error_rate", "metrics_from_counts", "wilson_interval", "log2_comb", "log2_lut_class",
-    "log2_memorize_class", "log2_tree_class",
+    "log2_memorize_class", "log2_tree_class", "QUANTIZED_F1_TOLERANCE", "quantization_check",
     "Spec", "answer", "apply_spec", "cost_order", "evaluate_spec", "lower_bound", "parse_spec", "patches_needed", "verdict",
 ]

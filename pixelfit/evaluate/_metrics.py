@@ -91,3 +91,31 @@ def metrics_from_counts(tp: int, fp: int, fn: int, tn: int) -> dict:
 
 def error_rate(y_true: np.ndarray, y_pred: np.ndarray) -> float:
     return float(np.mean(np.asarray(y_true, bool) != np.asarray(y_pred, bool))) if len(y_true) else 0.0
+
+
+#: Held-out F1 a quantized predictor may lose against its floating-point model before it is flagged.
+QUANTIZED_F1_TOLERANCE = 0.01
+
+
+def quantization_check(float_pred: np.ndarray, integer_pred: np.ndarray, y_true: np.ndarray | None = None) -> dict:
+    """How the integer-only predictor compares with the floating-point model on the same patches.
+
+    Returns ``{'n', 'agree', 'agreement', 'test', 'f1_float', 'f1_loss', 'loses_f1'}``: the
+    share of patches where both give the same call, and with labels the integer predictor's own
+    detection metrics (:func:`detection_metrics`), the F1 it loses against the float model (None where either F1 is
+    undefined) and whether that loss exceeds :data:`QUANTIZED_F1_TOLERANCE` (one point).
+    """
+    fp = np.asarray(float_pred, bool)
+    ip = np.asarray(integer_pred, bool)
+    n = int(len(fp))
+    agree = int(np.sum(fp == ip))
+    out: dict = {"n": n, "agree": agree, "agreement": agree / n if n else None,
+                 "test": None, "f1_float": None, "f1_loss": None, "loses_f1": None}
+    if y_true is not None:
+        y = np.asarray(y_true, bool)
+        q = detection_metrics(y, ip)
+        f = detection_metrics(y, fp)
+        loss = None if q["f1"] is None or f["f1"] is None else f["f1"] - q["f1"]
+        out.update(test=q,
+                   f1_float=f["f1"], f1_loss=loss, loses_f1=None if loss is None else bool(loss > QUANTIZED_F1_TOLERANCE))
+    return out

@@ -1,8 +1,11 @@
-"""Export a rule as a self-contained C99 header, plus a companion header of test vectors.
+"""Export a rule as a self-contained, integer-only C99 header, plus a companion header of test vectors.
 
 The predict function takes a row-major patch of 0/1 bytes (any non-zero byte counts as 1) and
-returns 1 for the positive class. No allocation anywhere; truth tables, trees and memorized
-tables use integers only; the weighted families use double-precision constants.
+returns 1 for the positive class. No allocation and no floating point anywhere: truth tables,
+trees and memorized tables are exact; naive Bayes, logistic and MLP weights are fixed point
+(each family's :class:`~pixelfit.families.IntegerModel`). The header defines
+``<PREFIX>_FLASH_BYTES``, the bytes of its ``static const`` tables, equal to :func:`cost`'s
+``flash_bytes``; the test vectors are the integer predictor's own answers.
 """
 
 from __future__ import annotations
@@ -15,7 +18,8 @@ from pathlib import Path
 import numpy as np
 
 from pixelfit._atomic import write_text
-from pixelfit.rulefile import CAUTION, Rule
+from pixelfit.families import CTable, IntegerModel
+from pixelfit.rulefile import CAUTION, Rule, parse_rule
 
 
 def c_identifier(stem: str) -> str:
@@ -23,16 +27,6 @@ def c_identifier(stem: str) -> str:
     if not ident or ident[0].isdigit():
         ident = "pf_" + ident
     return ident
-
-
-def _double(x: float) -> str:
-    return repr(float(x))
-
-
-def _rows(values, per_line: int = 12, fmt=str) -> str:
-    vals = [fmt(v) for v in values]
-    lines = [", ".join(vals[i : i + per_line]) for i in range(0, len(vals), per_line)]
-    return "    " + ",\n    ".join(lines) if lines else "    0"
 
 
 def _stat(value) -> str:
@@ -45,105 +39,65 @@ def _stat(value) -> str:
 
 
 def _comment(text: str) -> str:
-    return text.replace("*/", "* /")
+    """Text that is safe inside a C block comment, on one line.
+
+    A newline, tab or any other non-printable character becomes a backslash escape; ``/*`` and
+    ``*/`` are broken up (a nested ``/*`` is an error under -Werror, ``*/`` would end the
+    comment), and so are ``??`` (a trigraph could splice lines).
+    """
+    out = []
+    for ch in text:
+        if ch == "\\":
+            out.append("\\\\")
+        elif ch == "\n":
+            out.append("\\n")
+        elif ch.isprintable():
+            out.append(ch)
+        elif ord(ch) < 0x100:
+            out.append(f"\\x{ord(ch):02x}")
+        else:
+            out.append(f"\\u{ord(ch):04x}" if ord(ch) < 0x10000 else f"\\U{ord(ch):08x}")
+    s = "".join(out)
+    while "/*" in s or "*/" in s or "??" in s:
+        s = s.replace("/*", "/ *").replace("*/", "* /").replace("??", "? ?")
+    return s
 
 
-def _body(rule: Rule, ident: str, P: str) -> tuple[list[str], list[str], bool]:
-    """(static tables, statements of the predict function, needs math.h)."""
-    f = rule.family
-    tables: list[str] = []
-    code: list[str] = []
-    needs_math = False
-    if f == "constant":
-        code.append(f"    (void)patch;\n    return {int(rule._label)};")
-    elif f == "lut":
-        px = rule._pixels
-        k = len(px)
-        tables.append(f"static const uint16_t {ident}_pixels[{k}] = {{\n{_rows(px)}\n}};")
-        tables.append(f"static const uint8_t {ident}_table[{2**k}] = {{\n{_rows(rule._table.astype(int), 32)}\n}};")
-        code.append(f"    unsigned code = 0u;\n    unsigned j;\n    for (j = 0u; j < {k}u; ++j) {{\n"
-                    f"        if (patch[{ident}_pixels[j]] != 0u) {{\n            code |= 1u << j;\n        }}\n    }}\n"
-                    f"    return {ident}_table[code];")
-    elif f == "tree":
-        n = len(rule._feat)
-        tables.append(f"static const int16_t {ident}_pixel[{n}] = {{\n{_rows(rule._feat)}\n}};")
-        tables.append(f"static const int16_t {ident}_left[{n}] = {{\n{_rows(rule._left)}\n}};")
-        tables.append(f"static const int16_t {ident}_right[{n}] = {{\n{_rows(rule._right)}\n}};")
-        tables.append(f"static const uint8_t {ident}_label[{n}] = {{\n{_rows(rule._tlabel.astype(int), 32)}\n}};")
-        code.append(f"    int16_t node = 0;\n    while ({ident}_pixel[node] >= 0) {{\n"
-                    f"        node = (patch[{ident}_pixel[node]] != 0u) ? {ident}_right[node] : {ident}_left[node];\n"
-                    f"    }}\n    return {ident}_label[node];")
-    elif f == "memorize":
-        pats = sorted(rule._index.items())
-        n = len(pats)
-        nb = -(-rule.n_pixels // 8)
-        labels = [int(rule._labels[i]) for _, i in pats]
-        tables.append(f"#define {P}_BYTES {nb}\n#define {P}_N_PATTERNS {n}")
-        tables.append(f"static const uint8_t {ident}_patterns[{max(1, n)}][{nb}] = {{\n"
-                      + (",\n".join("    {" + ", ".join(str(b) for b in key) + "}" for key, _ in pats) or "    {0}")
-                      + "\n};")
-        tables.append(f"static const uint8_t {ident}_labels[{max(1, n)}] = {{\n{_rows(labels or [0], 32)}\n}};")
-        code.append(
-            f"    uint8_t key[{P}_BYTES];\n    unsigned i;\n    long lo = 0, hi = (long){P}_N_PATTERNS - 1;\n"
-            f"    for (i = 0u; i < {P}_BYTES; ++i) {{\n        key[i] = 0u;\n    }}\n"
-            f"    for (i = 0u; i < {P}_PIXELS; ++i) {{\n        if (patch[i] != 0u) {{\n"
-            f"            key[i / 8u] |= (uint8_t)(0x80u >> (i % 8u));\n        }}\n    }}\n"
-            f"    while (lo <= hi) {{\n        long mid = lo + (hi - lo) / 2;\n        int cmp = 0;\n"
-            f"        for (i = 0u; i < {P}_BYTES && cmp == 0; ++i) {{\n"
-            f"            cmp = (int){ident}_patterns[mid][i] - (int)key[i];\n        }}\n"
-            f"        if (cmp == 0) {{\n            return {ident}_labels[mid];\n        }}\n"
-            f"        if (cmp < 0) {{\n            lo = mid + 1;\n        }} else {{\n            hi = mid - 1;\n        }}\n"
-            f"    }}\n    return {int(rule._default_label)};")
-    elif f == "logistic":
-        w = rule._coef.ravel()
-        tables.append(f"static const double {ident}_weights[{P}_PIXELS] = {{\n{_rows(w, 4, _double)}\n}};")
-        code.append(f"    double z = {_double(rule._bias)};\n    unsigned i;\n"
-                    f"    for (i = 0u; i < {P}_PIXELS; ++i) {{\n        if (patch[i] != 0u) {{\n"
-                    f"            z += {ident}_weights[i];\n        }}\n    }}\n"
-                    f"    return z > {_double(rule.decision_logit)} ? 1 : 0;")
-    elif f == "nb":
-        px = rule._pixels
-        k = len(px)
-        on, off = rule._on, rule._off
-        base = rule._prior + off.sum(axis=1)
-        tables.append(f"static const uint16_t {ident}_pixels[{max(1, k)}] = {{\n{_rows(px if k else [0])}\n}};")
-        for c, name in ((0, "neg"), (1, "pos")):
-            tables.append(f"static const double {ident}_gain_{name}[{max(1, k)}] = {{\n"
-                          f"{_rows((on[c] - off[c]) if k else [0.0], 4, _double)}\n}};")
-        code.append(f"    double neg = {_double(base[0])};\n    double pos = {_double(base[1])};\n    unsigned j;\n"
-                    f"    for (j = 0u; j < {k}u; ++j) {{\n        if (patch[{ident}_pixels[j]] != 0u) {{\n"
-                    f"            neg += {ident}_gain_neg[j];\n            pos += {ident}_gain_pos[j];\n        }}\n    }}\n"
-                    f"    return pos - neg > {_double(rule.decision_logit)} ? 1 : 0;")
-    elif f == "mlp":
-        act = rule._act
-        needs_math = act in ("tanh", "logistic")
-        widths = [rule.n_pixels] + [W.shape[1] for W, _ in rule._layers]
-        for i, (W, b) in enumerate(rule._layers):
-            tables.append(f"static const double {ident}_w{i}[{W.shape[0]}][{W.shape[1]}] = {{\n"
-                          + ",\n".join("    {" + ", ".join(_double(v) for v in row) + "}" for row in W) + "\n};")
-            tables.append(f"static const double {ident}_b{i}[{W.shape[1]}] = {{\n{_rows(b, 4, _double)}\n}};")
-        widest = max(widths[1:])
-        apply = {"relu": "a < 0.0 ? 0.0 : a", "identity": "a", "tanh": "tanh(a)", "logistic": "1.0 / (1.0 + exp(-a))"}[act]
-        lines = [f"    double cur[{widest}];\n    double nxt[{widest}];\n    unsigned i, j;"]
-        for li, (W, _b) in enumerate(rule._layers):
-            n_in, n_out = W.shape
-            term = f"(patch[i] != 0u ? {ident}_w0[i][j] : 0.0)" if li == 0 else f"cur[i] * {ident}_w{li}[i][j]"
-            last = li == len(rule._layers) - 1
-            lines.append(f"    for (j = 0u; j < {n_out}u; ++j) {{\n        double a = {ident}_b{li}[j];\n"
-                         f"        for (i = 0u; i < {n_in}u; ++i) {{\n            a += {term};\n        }}\n"
-                         f"        nxt[j] = {'a' if last else apply};\n    }}")
-            lines.append(f"    for (j = 0u; j < {n_out}u; ++j) {{\n        cur[j] = nxt[j];\n    }}")
-        lines.append(f"    return cur[0] > {_double(rule.decision_logit)} ? 1 : 0;")
-        code.append("\n".join(lines))
-    else:
-        raise ValueError(f"no C export for family {f}")
-    return tables, code, needs_math
+def cost(rule: Rule, threshold: float | None = None) -> dict:
+    """Firmware cost of the integer-only predictor that :func:`export_c` writes for ``rule``.
+
+    Returns ``{'flash_bytes', 'ram_bytes', 'ops'}``: ``flash_bytes`` is the sum of ``sizeof`` of
+    the header's ``static const`` tables (code not counted), ``ram_bytes`` the predict function's
+    local variables as declared, ``ops`` the worst-case operations of one prediction as
+    ``{'pixel_reads', 'additions', 'multiplications', 'comparisons', 'total'}``.
+    """
+    return rule.integer(threshold).cost()
 
 
-def header_text(rule: Rule, ident: str) -> str:
+def cost_of_document(doc: dict | str | bytes, threshold: float | None = None) -> dict:
+    """:func:`cost` of a rule document (parsed JSON or its text), validated first."""
+    return cost(parse_rule(doc), threshold)
+
+
+def _fixed_point_lines(integer: IntegerModel) -> list[str]:
+    f = integer.facts
+    if not f:
+        return [" * Arithmetic: integers only; this family is exact (no rounding)."]
+    if "layers" in f:
+        scales = ", ".join(f"layer {i}: 2^{layer['frac_bits']}" + (f" then / 2^{layer['shift']}" if "shift" in layer else "")
+                           for i, layer in enumerate(f["layers"]))
+        return [" * Arithmetic: integers only. Weights int16, biases and accumulators int32 (fixed point;",
+                f" * weight scales {scales}); hidden units {_comment(f['hidden'])};",
+                f" * the output accumulator holds z * 2^{f['output_frac_bits']}; positive when it is >= the threshold."]
+    return [f" * Arithmetic: integers only. Weights int16, bias and accumulator int32, each a value times 2^{f['frac_bits']};",
+            " * positive when the accumulator is >= the threshold."]
+
+
+def header_text(rule: Rule, ident: str, threshold: float | None = None) -> str:
     P = ident.upper()
     h, w = rule.shape
-    tables, code, needs_math = _body(rule, ident, P)
+    integer = rule.integer(threshold)
+    c = integer.cost()
     b = rule.binarizer
     doc = rule.doc
     # evaluation is free-form in the schema: take only numbers from it, never text into the C file.
@@ -157,15 +111,19 @@ def header_text(rule: Rule, ident: str) -> str:
     test = test if isinstance(test, dict) else {}
     if at_spec and "n" not in test:
         test = {**test, "n": sum(v for k, v in test.items() if k in ("tp", "fp", "fn", "tn") and isinstance(v, int))}
+    decision = f"score > {rule.operating_threshold:.6g}" if threshold is None else f"score > {threshold:.6g}"
     lines = [
-        f"/* {ident}.h: pixelfit rule {rule.family}-{rule.size}, exported as C99.",
-        f" * Detects {_comment(rule.positive)!s} (returns 1) against {_comment(rule.negative)!s} (returns 0).",
+        f"/* {ident}.h: pixelfit rule {rule.family}-{rule.size}, exported as integer-only C99.",
+        f" * Detects {_comment(rule.positive)} (returns 1) against {_comment(rule.negative)} (returns 0), at {decision}.",
         f" * Input: a {h}x{w} patch, row-major, one byte per pixel, 0 or 1 (non-zero counts as 1),",
         f" * binarized as the rule was trained: {_comment(b.describe())} (fixed: pixel >= T is 1; otsu and",
         " * per-patch methods: pixel > threshold is 1; invert flips the bits).",
-        f" * Training data fingerprint (SHA-256): {doc['training_data']['fingerprint']}",
+        *_fixed_point_lines(integer),
+        f" * Cost: {c['flash_bytes']} bytes of tables, {c['ram_bytes']} bytes of locals, at most "
+        f"{c['ops']['total']} operations per patch.",
+        f" * Training data fingerprint (SHA-256): {_comment(str(doc['training_data']['fingerprint']))}",
         f" * Held-out precision {_stat(test.get('precision'))}, recall {_stat(test.get('recall'))} on "
-        f"{_stat(test.get('n'))} patches.",
+        f"{_stat(test.get('n'))} patches (the floating-point model, as recorded in the rule file).",
         f" * Operating threshold {rule.operating_threshold:.6g} (chosen on: {_comment(rule.operating_chosen_on)}): "
         "a patch is positive when its score is above it.",
         f" * Caution: {_comment(CAUTION)}",
@@ -174,25 +132,29 @@ def header_text(rule: Rule, ident: str) -> str:
         f"#define {P}_H",
         "",
         "#include <stdint.h>",
+        "",
+        f"#define {P}_HEIGHT {h}",
+        f"#define {P}_WIDTH {w}",
+        f"#define {P}_PIXELS {h * w}",
+        "/* Bytes of the static const tables below (the sum of their sizeof). */",
+        f"#define {P}_FLASH_BYTES {c['flash_bytes']}",
+        "",
     ]
-    if needs_math:
-        lines.append("#include <math.h>")
-    lines += ["", f"#define {P}_HEIGHT {h}", f"#define {P}_WIDTH {w}", f"#define {P}_PIXELS {h * w}", ""]
-    lines += [t + "\n" for t in tables]
+    lines += [t.declaration(ident) + "\n" for t in integer.tables]
     lines += [f"/* 1 when the patch is called {_comment(rule.positive)}, else 0. */",
-              f"static inline int {ident}_predict(const uint8_t patch[{P}_PIXELS])", "{"]
-    lines += code
-    lines += ["}", "", f"#endif /* {P}_H */", ""]
+              f"static inline int {ident}_predict(const uint8_t patch[{P}_PIXELS])", "{",
+              integer.c_code(ident, P), "}", "", f"#endif /* {P}_H */", ""]
     return "\n".join(lines)
 
 
-def vectors_text(rule: Rule, ident: str, X: np.ndarray, header_name: str) -> str:
+def vectors_text(rule: Rule, ident: str, X: np.ndarray, header_name: str, threshold: float | None = None) -> str:
+    """Test vectors: each patch with the integer predictor's answer (what the C must return)."""
     P = ident.upper()
-    pred = rule.predict(X).astype(int)
+    pred = rule.integer(threshold).predict(X).astype(int)
     n = len(X)
     rows = ",\n".join("    {" + ", ".join(str(int(v)) for v in row) + "}" for row in X.astype(np.uint8))
     return "\n".join([
-        f"/* {ident}_vectors.h: test vectors for {ident}.h: patch -> expected prediction, from pixelfit. */",
+        f"/* {ident}_vectors.h: test vectors for {ident}.h: patch -> the integer predictor's answer, from pixelfit. */",
         f"#ifndef {P}_VECTORS_H",
         f"#define {P}_VECTORS_H",
         "",
@@ -201,7 +163,7 @@ def vectors_text(rule: Rule, ident: str, X: np.ndarray, header_name: str) -> str
         f"#define {P}_N_VECTORS {n}",
         f"static const uint8_t {ident}_vector_patches[{n}][{P}_PIXELS] = {{\n{rows}\n}};",
         "",
-        f"static const uint8_t {ident}_vector_expected[{n}] = {{\n{_rows(pred, 32)}\n}};",
+        CTable("vector_expected", "uint8_t", pred).declaration(ident),
         "",
         f"#endif /* {P}_VECTORS_H */",
         "",
@@ -216,18 +178,22 @@ def default_vectors(rule: Rule, n: int = 64, seed: int = 0) -> np.ndarray:
     return np.vstack([np.zeros((1, rule.n_pixels), bool), np.ones((1, rule.n_pixels), bool), X])
 
 
-def export_c(rule: Rule, header_path: str | os.PathLike, vectors: np.ndarray | None = None) -> tuple[Path, Path]:
+def export_c(rule: Rule, header_path: str | os.PathLike, vectors: np.ndarray | None = None,
+             threshold: float | None = None) -> tuple[Path, Path]:
     """Write ``header_path`` and ``<stem>_vectors.h`` beside it; returns both paths.
 
     Parameters
     ----------
     vectors : ndarray of shape (n, n_pixels), bool, optional
         Patches for the test vectors; default: :func:`default_vectors`.
+    threshold : float, optional
+        Call positive when the score is at least this (quantized like the weights); default:
+        the model's own decision.
     """
     header_path = Path(header_path)
     ident = c_identifier(header_path.stem)
     X = default_vectors(rule) if vectors is None else np.asarray(vectors, bool).reshape(-1, rule.n_pixels)
-    write_text(header_path, header_text(rule, ident))
+    write_text(header_path, header_text(rule, ident, threshold))
     vpath = header_path.with_name(f"{header_path.stem}_vectors.h")
-    write_text(vpath, vectors_text(rule, ident, X, header_path.name))
+    write_text(vpath, vectors_text(rule, ident, X, header_path.name, threshold))
     return header_path, vpath

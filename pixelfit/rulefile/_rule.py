@@ -9,9 +9,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import json
-import math
 import os
-from collections.abc import Callable
 from importlib import resources
 from pathlib import Path
 
@@ -20,10 +18,10 @@ import numpy as np
 
 from pixelfit import __version__
 from pixelfit._atomic import write_json
-from pixelfit._numeric import linear_decision, sigmoid
 from pixelfit.conventions import BOUND_CONVENTION, UNDEFINED_CONVENTION
 from pixelfit.data import Binarizer
 from pixelfit.errors import RuleFileError
+from pixelfit.families import FAMILIES, IntegerModel, Model
 
 RULE_FORMAT = "pixelfit-rule"
 RULE_VERSION = 2
@@ -62,58 +60,11 @@ def _validator():
 # building a document from a trained rung
 
 
-def _rc(i, w: int) -> list[int]:
-    return [int(i) // w, int(i) % w]
-
-
 def model_section(family: str, size: int, est, shape: tuple[int, int]) -> dict:
     """Everything needed to predict, for one fitted estimator of the ladder."""
-    h, w = shape
-    p = h * w
-    m: dict = {"family": family, "size": int(size)}
-    if family == "constant":
-        m.update(label=bool(est.label_), score=float(est.rate_))
-    elif family == "lut":
-        m.update(pixels=[_rc(i, w) for i in est.pixels_], table=[int(v) for v in est.table_],
-                 scores=[float(v) for v in est.rate_],
-                 bit_order="bit j of a pattern code is the value of the j-th listed pixel")
-    elif family == "memorize":
-        cn, cp = est.counts_[:, 0], est.counts_[:, 1]
-        m.update(patterns=[row.tobytes().hex() for row in est.patterns_], labels=[int(v) for v in cp > cn],
-                 scores=[float(v) for v in cp / np.maximum(cp + cn, 1)], default_label=bool(est.default_),
-                 default_score=float(est.prior_),
-                 packing="each pattern is the row-major patch packed 8 pixels a byte, first pixel in the high bit")
-    elif family == "nb":
-        sel = np.flatnonzero(est.named_steps["select"].get_support())
-        nb = est.named_steps["nb"]
-        lp = nb.feature_log_prob_
-        off = np.log(1 - np.exp(lp))
-        weights = np.zeros(p)
-        weights[sel] = (lp[1] - off[1]) - (lp[0] - off[0])
-        m.update(pixels=[_rc(i, w) for i in sel], class_log_prior=[float(v) for v in nb.class_log_prior_],
-                 log_prob_on=[[float(v) for v in row] for row in lp],
-                 weights=weights.reshape(shape).tolist(),
-                 bias=float(nb.class_log_prior_[1] - nb.class_log_prior_[0] + off[1].sum() - off[0].sum()))
-    elif family == "logistic":
-        m.update(weights=est.coef_.reshape(shape).astype(float).tolist(), bias=float(est.intercept_[0]))
-    elif family == "tree":
-        t = est.tree_
-        nodes = []
-        for i in range(t.node_count):
-            leaf = t.children_left[i] == -1
-            v = t.value[i][0]
-            frac = float(v[1] / v.sum()) if v.sum() > 0 else 0.0
-            nodes.append({"pixel": None if leaf else _rc(t.feature[i], w), "left": int(t.children_left[i]),
-                          "right": int(t.children_right[i]), "label": int(v[1] > v[0]), "score": frac})
-        m.update(nodes=nodes, branch="go to 'left' when the pixel is 0, to 'right' when it is 1")
-    elif family == "mlp":
-        m.update(activation=est.activation,
-                 layers=[{"weights": W.astype(float).tolist(), "bias": b.astype(float).tolist()}
-                         for W, b in zip(est.coefs_, est.intercepts_)],
-                 output="logistic; positive when the output exceeds 0.5")
-    else:
+    if family not in FAMILIES:
         raise RuleFileError(f"family {family!r} cannot be written to a rule file")
-    return m
+    return FAMILIES[family].model_section(est, size, shape)
 
 
 def rule_document(prep, rung, operating: dict | None = None) -> dict:
@@ -150,6 +101,7 @@ def rule_document(prep, rung, operating: dict | None = None) -> dict:
             "split": {"test_fraction": prep.test_fraction, "seed": prep.seed, "presplit": prep.presplit},
         },
         "caution": CAUTION,
+        **({} if getattr(rung, "quantized", None) is None else {"quantized": rung.quantized}),
     }
 
 
@@ -249,18 +201,6 @@ def load_rule(path: str | os.PathLike) -> Rule:
         raise RuleFileError(f"{path}: {exc}") from None
 
 
-def _array(value, field: str, shape: tuple | None = None, dtype=np.float64) -> np.ndarray:
-    try:
-        arr = np.asarray(value, dtype=dtype)
-    except (ValueError, TypeError):
-        raise RuleFileError(f"{field}: not a regular array of numbers") from None
-    if shape is not None and arr.shape != shape:
-        raise RuleFileError(f"{field}: expected shape {list(shape)}, found {list(arr.shape)}")
-    if arr.dtype.kind == "f" and not np.isfinite(arr).all():
-        raise RuleFileError(f"{field}: holds NaN or infinity")
-    return arr
-
-
 class Rule:
     """A loaded, validated rule. Predicts from 0/1 pixels with numpy only.
 
@@ -299,127 +239,12 @@ class Rule:
         self.operating_threshold: float = float(op["threshold"])
         #: Where the threshold was chosen: default, cv, train, held-out or manual.
         self.operating_chosen_on: str = str(op["chosen_on"])
-        self._build(m)
-        self._decide_labels(self.operating_threshold)
-
-    def _decide_labels(self, t: float) -> None:
-        """Re-derive the stored decisions of the table-like families as score > t (one rule everywhere)."""
-        f = self.family
-        if f == "constant":
-            self._label = bool(self._score > t)
-        elif f == "lut":
-            self._table = self._scores > t
-        elif f == "memorize":
-            self._labels = self._mscores > t
-            self._default_label = bool(self._default_score > t)
-        elif f == "tree":
-            self._tlabel = self._tscore > t
-
-    @property
-    def decision_logit(self) -> float:
-        """logit(threshold): the linear families call positive when their log-odds exceed it.
-
-        Clamped to +-746, beyond which the logistic function of a double is exactly 0 or 1.
-        """
-        t = self.operating_threshold
-        if t <= 0.0:
-            return -746.0
-        if t >= 1.0:
-            return 746.0
-        return float(min(746.0, max(-746.0, math.log(t / (1.0 - t)))))
+        #: the decoded model: numpy prediction and the integer-only predictor of firmware
+        self.model: Model = FAMILIES[self.family].decode(m, self.shape)
 
     @property
     def scored(self) -> bool:
-        return self.family not in ("constant",)
-
-    def _flat(self, pixels, field: str) -> np.ndarray:
-        h, w = self.shape
-        out = []
-        for j, (r, c) in enumerate(pixels):
-            if not (0 <= r < h and 0 <= c < w):
-                raise RuleFileError(f"{field}/{j}: pixel ({r}, {c}) is outside the {h}x{w} patch")
-            out.append(r * w + c)
-        flat = np.asarray(out, dtype=np.intp)
-        if len(set(out)) != len(out):
-            raise RuleFileError(f"{field}: a pixel is listed twice")
-        return flat
-
-    def _build(self, m: dict) -> None:
-        f = self.family
-        if f == "constant":
-            self._label, self._score = bool(m["label"]), float(m["score"])
-        elif f == "lut":
-            self._pixels = self._flat(m["pixels"], "model/pixels")
-            k = len(self._pixels)
-            if k != self.size:
-                raise RuleFileError(f"model/pixels: {k} pixels listed for a size-{self.size} rule")
-            if k > 24:
-                raise RuleFileError(f"model/pixels: {k} pixels is more than a truth table can hold here (24)")
-            self._table = _array(m["table"], "model/table", (2**k,), np.int64).astype(bool)
-            self._scores = _array(m["scores"], "model/scores", (2**k,))
-        elif f == "memorize":
-            n_bytes = -(-self.n_pixels // 8)
-            pats = m["patterns"]
-            bad = [i for i, s in enumerate(pats) if len(s) != 2 * n_bytes]
-            if bad:
-                raise RuleFileError(f"model/patterns/{bad[0]}: expected {2 * n_bytes} hex digits for a "
-                                    f"{self.shape[0]}x{self.shape[1]} patch")
-            n = len(pats)
-            self._labels = _array(m["labels"], "model/labels", (n,), np.int64).astype(bool)
-            self._mscores = _array(m["scores"], "model/scores", (n,))
-            self._index = {bytes.fromhex(s): i for i, s in enumerate(pats)}
-            if len(self._index) != n:
-                raise RuleFileError("model/patterns: a pattern is listed twice")
-            self._default_label, self._default_score = bool(m["default_label"]), float(m["default_score"])
-        elif f == "nb":
-            self._pixels = self._flat(m["pixels"], "model/pixels")
-            k = len(self._pixels)
-            self._prior = _array(m["class_log_prior"], "model/class_log_prior", (2,))
-            self._on = _array(m["log_prob_on"], "model/log_prob_on", (2, k))
-            if (self._on >= 0).any():
-                raise RuleFileError("model/log_prob_on: log probabilities must be below 0")
-            self._off = np.log(1 - np.exp(self._on))  # as scikit-learn's BernoulliNB derives it
-            _array(m["weights"], "model/weights", self.shape)
-        elif f == "logistic":
-            self._coef = _array(m["weights"], "model/weights", self.shape).reshape(1, -1)
-            self._bias = float(m["bias"])
-            if not math.isfinite(self._bias):
-                raise RuleFileError("model/bias: not a finite number")
-        elif f == "tree":
-            nodes = m["nodes"]
-            n = len(nodes)
-            self._feat = np.full(n, -1, np.intp)
-            self._left = np.zeros(n, np.intp)
-            self._right = np.zeros(n, np.intp)
-            self._tlabel = np.zeros(n, bool)
-            self._tscore = np.zeros(n)
-            for i, node in enumerate(nodes):
-                leaf = node["pixel"] is None
-                lo, ro = node["left"], node["right"]
-                if leaf:
-                    if lo != -1 or ro != -1:
-                        raise RuleFileError(f"model/nodes/{i}: a leaf (pixel null) must have left = right = -1")
-                else:
-                    self._feat[i] = self._flat([node["pixel"]], f"model/nodes/{i}/pixel")[0]
-                    # Children come after their parent: the tree has no cycles and every walk ends.
-                    for side, child in (("left", lo), ("right", ro)):
-                        if not (i < child < n):
-                            raise RuleFileError(f"model/nodes/{i}/{side}: child {child} must be a later node (< {n})")
-                self._left[i], self._right[i] = lo, ro
-                self._tlabel[i], self._tscore[i] = bool(node["label"]), float(node["score"])
-        elif f == "mlp":
-            self._act = m["activation"]
-            self._layers = []
-            width = self.n_pixels
-            for i, layer in enumerate(m["layers"]):
-                W = _array(layer["weights"], f"model/layers/{i}/weights")
-                if W.ndim != 2 or W.shape[0] != width:
-                    raise RuleFileError(f"model/layers/{i}/weights: expected {width} rows, found shape {list(W.shape)}")
-                b = _array(layer["bias"], f"model/layers/{i}/bias", (W.shape[1],))
-                self._layers.append((W, b))
-                width = W.shape[1]
-            if width != 1:
-                raise RuleFileError(f"model/layers: the last layer must have 1 output, it has {width}")
+        return self.model.scored
 
     # -- prediction ---------------------------------------------------------------------------
 
@@ -432,56 +257,9 @@ class Rule:
                                 f"{self.shape[0]}x{self.shape[1]} = {self.n_pixels}")
         return X.astype(bool)
 
-    def _decide(self, X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        f = self.family
-        n = len(X)
-        if f == "constant":
-            return np.full(n, self._score), np.full(n, self._label)
-        if f == "lut":
-            codes = X[:, self._pixels].astype(np.intp) @ (1 << np.arange(len(self._pixels))).astype(np.intp)
-            return self._scores[codes], self._table[codes]
-        if f == "memorize":
-            packed = np.packbits(X, axis=1)
-            idx = np.array([self._index.get(row.tobytes(), -1) for row in packed], dtype=np.intp)
-            seen = idx >= 0
-            scores = np.where(seen, self._mscores[idx], self._default_score)
-            return scores, np.where(seen, self._labels[idx], self._default_label)
-        if f == "nb":
-            # The same arithmetic as scikit-learn's BernoulliNB joint log-likelihood.
-            Xs = X[:, self._pixels].astype(np.float64)
-            off = self._off
-            jll = Xs @ (self._on - off).T + (self._prior + off.sum(axis=1))
-            top = jll.max(axis=1, keepdims=True)
-            log_norm = top[:, 0] + np.log(np.exp(jll - top).sum(axis=1))
-            return np.exp(jll[:, 1] - log_norm), jll[:, 1] > jll[:, 0]
-        if f == "logistic":
-            z = linear_decision(X, self._coef, self._bias)
-            return sigmoid(z), z > 0
-        if f == "tree":
-            node = np.zeros(n, np.intp)
-            rows = np.arange(n)
-            for _ in range(len(self._feat)):
-                inner = self._feat[node] >= 0
-                if not inner.any():
-                    break
-                r = rows[inner]
-                nd = node[inner]
-                bit = X[r, self._feat[nd]]
-                node[inner] = np.where(bit, self._right[nd], self._left[nd])
-            return self._tscore[node], self._tlabel[node]
-        if f == "mlp":
-            a = X.astype(np.float64)
-            for i, (W, b) in enumerate(self._layers):
-                a = a @ W + b
-                if i < len(self._layers) - 1:
-                    a = _ACTIVATIONS[self._act](a)
-            proba = sigmoid(a[:, 0])
-            return proba, proba > 0.5
-        raise RuleFileError(f"unknown family {f}")
-
     def scores(self, X) -> np.ndarray:
         """Score (estimated probability of the positive class) per patch, shape (n,)."""
-        return self._decide(self._check_bits(X))[0]
+        return self.model.decide(self._check_bits(X))[0]
 
     def predict(self, X, threshold: float | None = None) -> np.ndarray:
         """True where the patch's score is above ``threshold`` (default: :attr:`operating_threshold`).
@@ -490,7 +268,7 @@ class Rule:
         ----------
         X : ndarray of shape (n, n_pixels) or (n, h, w), 0/1
         """
-        s = self._decide(self._check_bits(X))[0]
+        s = self.model.decide(self._check_bits(X))[0]
         return s > (self.operating_threshold if threshold is None else threshold)
 
     def binarize(self, images: np.ndarray) -> np.ndarray:
@@ -502,21 +280,9 @@ class Rule:
 
     def pixels_used(self) -> list[int] | None:
         """Flat indices the rule reads; None when it reads the whole patch."""
-        f = self.family
-        if f == "constant":
-            return []
-        if f in ("lut", "nb"):
-            return [int(i) for i in self._pixels]
-        if f == "logistic":
-            return [int(i) for i in np.flatnonzero(self._coef.ravel())]
-        if f == "tree":
-            return sorted({int(i) for i in self._feat[self._feat >= 0]})
-        return None
+        return self.model.pixels_used()
 
-
-_ACTIVATIONS: dict[str, Callable[[np.ndarray], np.ndarray]] = {
-    "relu": lambda a: np.maximum(a, 0),
-    "tanh": np.tanh,
-    "logistic": sigmoid,
-    "identity": lambda a: a,
-}
+    def integer(self, threshold: float | None = None) -> IntegerModel:
+        """The integer-only predictor that firmware runs, at ``threshold`` (None: the rule's
+        operating threshold); positive when the score is above it. See :mod:`pixelfit.families`."""
+        return self.model.integer(self.operating_threshold if threshold is None else threshold)

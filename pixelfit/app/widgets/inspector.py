@@ -8,7 +8,7 @@ from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
 from pixelfit.app.images import enlarged_pixmap, signed_colormap, symmetric_levels
 from pixelfit.app.session import MAP_KINDS, Session
 from pixelfit.app.widgets import Listens, Throttled
-from pixelfit.models import FAMILIES
+from pixelfit.families import FAMILIES
 
 #: Thumbnails of misses shown per kind; the count says how many there are in all.
 MAX_MISSES = 48

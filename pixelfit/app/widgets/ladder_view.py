@@ -8,8 +8,10 @@ from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
 from pixelfit.app.session import LADDER_AXES, Session, axis_position, nearest_point
 from pixelfit.app.widgets import Listens, Throttled
 from pixelfit.errors import PixelfitError
+from pixelfit.families import FAMILY_ORDER
 from pixelfit.ladder import Rung
-from pixelfit.models import BEAM_MARK, BEAM_NOTE, FAMILIES, FAMILY_ORDER, is_beam
+from pixelfit.models import BEAM_NOTE, is_beam
+from pixelfit.text import COLUMNS, rung_cells
 
 #: One colour per family, so a family keeps its colour in the plot and the table.
 FAMILY_RGB = {"constant": (110, 110, 110), "lut": (46, 92, 160), "nb": (40, 150, 70), "logistic": (150, 60, 150),
@@ -26,43 +28,11 @@ COLUMN_FIT_INTERVAL_MS = 1000
 LEFT_AXIS_WIDTH = 46
 
 
-def _num(v, digits: int = 3) -> str:
-    return "–" if v is None else f"{v:.{digits}f}"
-
-
-def _with_ci(v, ci) -> str:
-    if v is None:
-        return "–"
-    return f"{v:.3f}" + ("" if not ci else f" [{ci[0]:.2f}, {ci[1]:.2f}]")
-
-
-def _log2h(v) -> str:
-    if v is None:
-        return "–"
-    return f"{v:.1f}" if v < 1e5 else f"{v:.3g}"
-
-
-#: (header, tooltip, cell text of a rung)
-COLUMNS: list[tuple[str, str, callable]] = [
-    ("rung", "family-size; ★ marks the recommended rung, ◆ the answer to the spec; (beam) a truth table found "
-             "by a beam search, not by trying every pixel set",
-     lambda r: ("★ " if r.recommended else "") + r.key + (BEAM_MARK if is_beam(r.search) else "")),
-    ("size", "the family's size axis", lambda r: f"{r.size} {FAMILIES[r.family].size_name}"),
-    ("log2 |H|", "log2 of the number of rules in the family's class at this size (finite classes)",
-     lambda r: _log2h(r.figures["log2_class_size"])),
-    ("params", "parameters of the fitted rule", lambda r: str(r.figures["parameters"])),
-    ("train F1", "F1 on the training part", lambda r: _num(r.train["f1"])),
-    ("CV F1 ± sd", "cross-validated F1 on the training part, mean ± fold standard deviation",
-     lambda r: "–" if not r.cv else f"{r.cv['f1_mean']:.3f} ± {r.cv['f1_std']:.3f}"),
-    ("held-out P [95 % CI]", "precision on held-out patches with its Wilson interval",
-     lambda r: _with_ci(r.test["precision"], r.test["precision_ci"])),
-    ("held-out R [95 % CI]", "recall on held-out patches with its Wilson interval",
-     lambda r: _with_ci(r.test["recall"], r.test["recall_ci"])),
-    ("bound", "upper bound on the true error rate at 95 % confidence",
-     lambda r: "–" if r.bound is None else _num(r.bound["error_upper"])),
-    ("spec", "verdict on the spec: threshold chosen on CV scores, judged by the held-out lower bounds",
-     lambda r: "–" if r.spec is None else r.spec["verdict"]),
-]
+def _cells(r: Rung, shape: tuple[int, int]) -> list[str]:
+    """The row of a rung: the same columns as the command line's table (pixelfit.text.COLUMNS)."""
+    cells = rung_cells(r.summary(shape))
+    cells[0] = ("★ " if r.recommended else "") + cells[0]
+    return cells
 
 
 def _tooltip(r: Rung) -> str:
@@ -76,15 +46,15 @@ def _tooltip(r: Rung) -> str:
     return "\n".join(lines)
 
 
-def _row_look(r: Rung, answer: str | None = None) -> tuple[tuple[str, ...], bool, str]:
+def _row_look(r: Rung, shape: tuple[int, int], answer: str | None = None) -> tuple[tuple[str, ...], bool, str]:
     """Everything a rung's row shows: the cell texts, the recommended mark, the tooltip.
 
     ``answer`` is the key of the rung that answers the spec: its name is marked ◆.
     """
-    texts = [cell(r) for _, _, cell in COLUMNS]
+    cells = _cells(r, shape)
     if r.key == answer:
-        texts[0] = "◆ " + texts[0]
-    return tuple(texts), bool(r.recommended), _tooltip(r)
+        cells[0] = "◆ " + cells[0]
+    return tuple(cells), bool(r.recommended), _tooltip(r)
 
 
 class LadderTableModel(QtGui.QStandardItemModel):
@@ -99,9 +69,9 @@ class LadderTableModel(QtGui.QStandardItemModel):
 
     def __init__(self, session: Session, parent=None):
         super().__init__(0, len(COLUMNS), parent)
-        for c, (head, tip, _) in enumerate(COLUMNS):
-            item = QtGui.QStandardItem(head)
-            item.setToolTip(tip)
+        for c, col in enumerate(COLUMNS):
+            item = QtGui.QStandardItem(col.header)
+            item.setToolTip(col.tooltip + ("; ★ marks the recommended rung" if c == 0 else ""))
             self.setHorizontalHeaderItem(c, item)
         self.session = session
         self.rows: list[Rung] = []
@@ -116,6 +86,8 @@ class LadderTableModel(QtGui.QStandardItemModel):
     def follow(self) -> bool:
         """Catch up with ``session.rungs``; True when that took a reset rather than appended rows."""
         now = self.session.rungs
+        # Rungs exist only once the session has prepared its data; the shape names their pixels.
+        shape = self.session.prep.shape if self.session.prep is not None else (1, 1)
         if len(now) < len(self.rows) or any(a is not b for a, b in zip(self.rows, now)):
             self.setRowCount(0)
             self.rows, self._looks = [], []
@@ -124,7 +96,7 @@ class LadderTableModel(QtGui.QStandardItemModel):
             reset = False
         answer = (self.session.answer or {}).get("rung")
         for i, r in enumerate(now):
-            look = _row_look(r, answer)
+            look = _row_look(r, shape, answer)
             if i == len(self.rows):
                 self.appendRow(self._items(r, look))
                 self.rows.append(r)
