@@ -196,11 +196,11 @@ def test_progress_reaches_the_total_and_cancel_stops(rng, monkeypatch):
 def test_rule_falls_back_to_a_beam_that_reports_its_own_error_and_cancels(rng):
     X = rng.random((300, 30)) < 0.5
     y = (X[:, 4] & X[:, 11]) ^ (rng.random(300) < 0.15)
-    rule = LutRule(k=3, max_exhaustive=500, beam_width=8).fit(X, y)  # C(30, 3) = 4060 > 500
+    rule = LutRule(k=3, exact_size=2, beam_width=8).fit(X, y)
     assert rule.search_ == "beam"
     assert rule.train_errors_ == int(np.minimum(rule.counts_[:, 0], rule.counts_[:, 1]).sum())
     stepped = []  # the rule reports progress only from the beam: cancel once it has stepped
     with pytest.raises(SearchCancelled):
-        LutRule(k=4, max_exhaustive=500, beam_width=8).fit(
+        LutRule(k=4, exact_size=2, beam_width=8).fit(
             X, y, progress=lambda d, t: stepped.append(d), cancel=lambda: bool(stepped))
     assert stepped == [1]

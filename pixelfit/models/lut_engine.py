@@ -49,8 +49,11 @@ set (what a plain loop over ``itertools.combinations`` keeping the first strict 
 
 from __future__ import annotations
 
+import threading
+import time
 import warnings
 from collections.abc import Callable, Iterator
+from dataclasses import dataclass
 from math import comb
 
 import numpy as np
@@ -66,6 +69,13 @@ _MAX_TABLE_ORDER = 24
 #: Searches smaller than this many words of AND + popcount run in the calling thread: below it,
 #: starting workers costs more than it saves (a k = 3 search on 10,000 9x9 patches is ~13M).
 PARALLEL_MIN_WORDS = 1 << 27
+
+#: An exhaustive search estimated to take at most this many seconds runs by default; a longer
+#: one becomes a beam search grown from the largest size that fits the same budget.
+EXHAUSTIVE_SECONDS = 30.0
+#: Time spent scoring sample units to estimate a search's length (the units are real work).
+CALIBRATION_SECONDS = 0.05
+_CALIBRATION_UNITS = 16
 
 ProgressFn = Callable[[int, int], None]
 CancelFn = Callable[[], bool]
@@ -204,6 +214,12 @@ class CountIndex:
     def n_words(self) -> int:
         return self.packed.shape[1]
 
+    def __sizeof__(self) -> int:
+        # What a process or cluster backend ships to its workers; a cluster engine sizes its
+        # transfers by it (joblib's Dask backend scatters an argument once when it is large).
+        arrays = [self.packed, self.word_weights, self._binom, *self._tables.values(), *self._colex.values()]
+        return object.__sizeof__(self) + sum(a.nbytes for a in arrays)
+
     # -- helpers -----------------------------------------------------------------------------
 
     def rank(self, T: np.ndarray) -> np.ndarray:
@@ -220,9 +236,14 @@ class CountIndex:
 
     def _count(self, words: np.ndarray) -> np.ndarray:
         """Difference counts from ANDed words (..., n_words) -> (...), int32."""
-        bits = np.bitwise_count(words)
-        flat = bits.reshape(-1, self.n_words).astype(self.word_weights.dtype)
-        return np.rint(flat @ self.word_weights).astype(np.int32).reshape(bits.shape[:-1])
+        shape = words.shape[:-1]
+        flat = words.reshape(-1, self.n_words)
+        bits = _scratch("bits", flat.shape, np.uint8)
+        np.bitwise_count(flat, out=bits)
+        weights = self.word_weights
+        wide = _scratch("wide", flat.shape, weights.dtype)
+        wide[...] = bits
+        return np.rint(wide @ weights).astype(np.int32).reshape(shape)
 
     def _prefix_and(self, P: np.ndarray) -> np.ndarray:
         """AND of the packed columns of each prefix row (m, j) -> (m, n_words)."""
@@ -240,7 +261,10 @@ class CountIndex:
         one popcount of ``n_words`` words per (prefix, d).
         """
         acc = self._prefix_and(P)
-        return self._count(acc[:, None, :] & self.packed[None, c + 1 :, :])
+        cols = self.packed[c + 1 :]
+        words = _scratch("and", (len(P), len(cols), self.n_words), np.uint64)
+        np.bitwise_and(acc[:, None, :], cols[None, :, :], out=words)
+        return self._count(words)
 
     def all_ones(self, T: np.ndarray) -> np.ndarray:
         """D(T) for each sorted row of ``T`` (m, o) -> (m,) int32, from a table if one is built.
@@ -348,6 +372,23 @@ class CountIndex:
         return (self.n_patches - np.abs(D).sum(axis=0)) // 2
 
 
+_SCRATCH = threading.local()
+
+
+def _scratch(name: str, shape: tuple[int, ...], dtype) -> np.ndarray:
+    """A reusable per-thread buffer of at least ``shape``: fresh multi-MB arrays cost page faults.
+
+    Returned arrays are views into a buffer kept for the thread; a second call with the same name
+    overwrites it, so callers use each one before asking for it again.
+    """
+    need = int(np.prod(shape))
+    store = _SCRATCH.__dict__
+    buf = store.get(name)
+    if buf is None or buf.dtype != dtype or buf.size < need:
+        buf = store[name] = np.empty(max(need, 1), dtype)
+    return buf[:need].reshape(shape)
+
+
 def _moebius(A: np.ndarray, h: int) -> None:
     """In place, over axis 0 of length 2^h: all-ones counts -> exact pattern counts.
 
@@ -412,6 +453,73 @@ def run_units(func, index: CountIndex, units: list, n_jobs: int | None, cancel: 
             results.close()
 
 
+@dataclass(frozen=True)
+class SearchPlan:
+    """How a k-pixel search will run, decided from its estimated time.
+
+    Attributes
+    ----------
+    k : int
+    sets : int
+        Pixel sets of size k, C(n_pixels, k).
+    method : {'exhaustive', 'beam'}
+    estimated_seconds : float
+        Estimated time of the exhaustive search at size k in one worker on this machine (from
+        timing sample units of it), whether or not it runs.
+    largest_exact_size : int
+        The largest size searched exhaustively: k itself, or the size a beam grows from.
+    """
+
+    k: int
+    sets: int
+    method: str
+    estimated_seconds: float
+    largest_exact_size: int
+
+    def as_dict(self) -> dict:
+        return {"method": self.method, "sets": self.sets, "estimated_seconds": round(self.estimated_seconds, 3),
+                "largest_exact_size": self.largest_exact_size}
+
+
+def plan_search(index: CountIndex, k: int, max_seconds: float = EXHAUSTIVE_SECONDS, exhaustive: bool = False,
+                cancel: CancelFn | None = None) -> SearchPlan:
+    """Estimate the exhaustive search of size ``k`` and choose exhaustive or beam.
+
+    Builds the all-ones tables the search needs (kept in ``index``, timed into the estimate),
+    then scores up to a few evenly spread work units of size k and extrapolates their time per
+    set to all C(n_pixels, k) sets. The search is exhaustive when ``exhaustive`` is True or the
+    estimate is at most ``max_seconds``; otherwise a beam grows from the largest size whose own
+    exhaustive search fits ``max_seconds`` at the same rate per set (at least 1).
+    """
+    p = index.n_pixels
+    sets = n_combinations(p, k)
+    t0 = time.perf_counter()
+    with threadpool_limits(1, user_api="blas"):
+        for o in range(1, k):
+            if index.table_fits(o):
+                index.table(o, cancel=cancel)
+        tables = time.perf_counter() - t0
+        units = list(index.units(k - 1))
+        picks = np.unique(np.linspace(0, len(units) - 1, min(len(units), _CALIBRATION_UNITS)).astype(int))
+        sampled, spent = 0, 0.0
+        for i in picks:
+            if cancel is not None and cancel():
+                raise SearchCancelled
+            h, c, lo, hi = units[i]
+            t1 = time.perf_counter()
+            _best_unit(index, units[i], 1)
+            spent += time.perf_counter() - t1
+            sampled += (hi - lo) * (p - 1 - c)
+            if spent >= CALIBRATION_SECONDS:
+                break
+    per_set = spent / max(1, sampled)
+    estimate = tables + sets * per_set
+    if exhaustive or estimate <= max_seconds:
+        return SearchPlan(k, sets, "exhaustive", estimate, k)
+    exact = max([j for j in range(1, k) if n_combinations(p, j) * per_set <= max_seconds], default=1)
+    return SearchPlan(k, sets, "beam", estimate, exact)
+
+
 def exhaustive_best(
     index: CountIndex,
     k: int,
@@ -461,6 +569,8 @@ def exhaustive_best(
             done += (unit[3] - unit[2]) * (p - 1 - unit[1])
             if progress is not None:
                 progress(done, total)
+    if done != total:  # every unit's result must be in: a lost one could hide the optimum
+        raise RuntimeError(f"the search scored {done:,} of {total:,} pixel sets")
     return best_c, best_e, total
 
 
