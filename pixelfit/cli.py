@@ -62,7 +62,11 @@ class _ProgressBar:
         self.width = width
         self.tty = hasattr(self.stream, "isatty") and self.stream.isatty()
 
-    def update(self, done: int, total: int, message: str, rung_done: bool) -> None:
+    def update(self, done: int, total: int, message: str, rung_done: bool, notice: bool = False) -> None:
+        if notice:  # a fact to keep (a search's estimate): its own line, terminal or not
+            self.stream.write(("\r" + " " * 100 + "\r" if self.tty else "") + message + "\n")
+            self.stream.flush()
+            return
         if not self.tty and not rung_done:
             return
         filled = int(self.width * done / max(1, total))
@@ -96,7 +100,8 @@ def cmd_fit(args) -> int:
     except OSError as exc:
         raise PixelfitError(f"--out {args.out}: cannot create the folder ({exc.strerror or exc})") from None
     settings = {"families": families, "max_size": args.max_size, "sizes": args.sizes, "folds": args.folds,
-                "seed": args.seed, "target_precision": args.target_precision, "target_recall": args.target_recall}
+                "seed": args.seed, "target_precision": args.target_precision, "target_recall": args.target_recall,
+                "exhaustive": args.exhaustive, "scheduler": args.scheduler}
     h, w = prep.shape
     print(f"{ds.source}: {len(ds)} patches of {h}x{w}; detecting {prep.positive!r} against {prep.negative!r}; "
           f"{len(prep.y_train)} train / {len(prep.y_test)} held-out"
@@ -108,10 +113,10 @@ def cmd_fit(args) -> int:
     cancelled = False
     try:
         for pr in run_ladder(prep, rungs_plan, args.folds, args.seed, target_precision=args.target_precision,
-                             target_recall=args.target_recall):
+                             target_recall=args.target_recall, exhaustive=args.exhaustive, scheduler=args.scheduler):
             if pr.rung is not None:
                 done_rungs.append(pr.rung)
-            bar.update(pr.done, pr.total, pr.message, pr.rung is not None)
+            bar.update(pr.done, pr.total, pr.message, pr.rung is not None, pr.notice)
     except (KeyboardInterrupt, LadderCancelled):
         cancelled = True
     finally:
@@ -306,6 +311,11 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--folds", type=int, default=5, help="cross-validation folds on the training part; 0 turns it off")
     f.add_argument("--target-precision", type=float, metavar="P", help="find the threshold meeting this precision")
     f.add_argument("--target-recall", type=float, metavar="R", help="find the threshold meeting this recall")
+    f.add_argument("--exhaustive", action="store_true",
+                   help="score every pixel set of each lut rung, however long it is estimated to take (by default "
+                        "a search estimated over 30 s becomes a beam search)")
+    f.add_argument("--scheduler", metavar="ADDRESS", help="run the lut searches on a Dask cluster through this "
+                   "scheduler (tcp://host:8786); needs pip install 'pixelfit[cluster]'")
     f.add_argument("--no-rules", dest="rules", action="store_false", help="do not write rules/<family>-<size>.json")
     f.set_defaults(func=cmd_fit)
 

@@ -62,3 +62,39 @@ def test_bad_arguments(class_folder, tmp_path, capsys):
     assert "unknown binarize method" in capsys.readouterr().err
     assert main(["fit", str(class_folder), "--out", str(tmp_path / "x"), "--families", "magic"]) == 2
     assert "unknown family" in capsys.readouterr().err
+
+
+def test_fit_records_the_search_and_announces_a_long_or_inexact_one(class_folder, tmp_path, capsys, monkeypatch):
+    import json
+
+    import pixelfit.ladder as ladder
+
+    monkeypatch.setattr(ladder, "NOTICE_SECONDS", 0.0)  # announce every exhaustive search
+    out = tmp_path / "ex"
+    assert main(["fit", str(class_folder), "--out", str(out), "--families", "lut", "--sizes", "lut=2",
+                 "--folds", "0", "--exhaustive"]) == 0
+    err = capsys.readouterr().err
+    assert "lut-2: exhaustive search of 2,016 pixel sets, estimated" in err  # C(64, 2), 8x8 patches
+    summary = json.loads((out / "summary.json").read_text())
+    search = summary["rungs"][0]["search"]
+    assert search["method"] == "exhaustive" and search["sets"] == search["candidates"] == 2016
+    assert search["largest_exact_size"] == 2 and search["estimated_seconds"] >= 0
+    assert summary["settings"]["exhaustive"] is True
+    rule = json.loads((out / "rules" / "lut-2.json").read_text())
+    assert rule["evaluation"]["search"]["method"] == "exhaustive"
+
+
+def test_fit_without_time_for_an_exhaustive_search_says_beam_everywhere(class_folder, tmp_path, capsys,
+                                                                         monkeypatch):
+    import json
+
+    from pixelfit.models import lut_engine
+
+    monkeypatch.setattr(lut_engine, "EXHAUSTIVE_SECONDS", 0.0)
+    out = tmp_path / "beam"
+    assert main(["fit", str(class_folder), "--out", str(out), "--families", "lut", "--sizes", "lut=3",
+                 "--folds", "0"]) == 0
+    err = capsys.readouterr().err
+    assert "lut-3: scoring all 41,664 pixel sets would take an estimated" in err and "size 1 instead" in err
+    search = json.loads((out / "summary.json").read_text())["rungs"][0]["search"]
+    assert search["method"] == "beam" and search["largest_exact_size"] == 1

@@ -13,7 +13,6 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 
 from pixelfit.errors import TrainingError
 from pixelfit.models.lut_engine import (
-    EXHAUSTIVE_SECONDS,
     CancelFn,
     CountIndex,
     ProgressFn,
@@ -103,10 +102,10 @@ class LutRule(_BinaryRule):
     ----------
     k : int
         Number of pixels the rule looks at.
-    max_seconds : float
+    max_seconds : float or None
         Score every k-subset when that search is estimated (by timing a few of its work units
         first) to take at most this long; otherwise grow a beam from the largest size whose
-        exhaustive search fits the same time.
+        exhaustive search fits the same time. None: ``lut_engine.EXHAUSTIVE_SECONDS`` (30 s).
     exhaustive : bool
         Score every k-subset whatever the estimate.
     exact_size : int or None
@@ -143,7 +142,7 @@ class LutRule(_BinaryRule):
     train_errors_ : int
     """
 
-    def __init__(self, k: int = 1, max_seconds: float = EXHAUSTIVE_SECONDS, exhaustive: bool = False,
+    def __init__(self, k: int = 1, max_seconds: float | None = None, exhaustive: bool = False,
                  exact_size: int | None = None, beam_width: int = 256, n_jobs: int | None = 1):
         self.k = k
         self.max_seconds = max_seconds

@@ -481,7 +481,7 @@ class SearchPlan:
                 "largest_exact_size": self.largest_exact_size}
 
 
-def plan_search(index: CountIndex, k: int, max_seconds: float = EXHAUSTIVE_SECONDS, exhaustive: bool = False,
+def plan_search(index: CountIndex, k: int, max_seconds: float | None = None, exhaustive: bool = False,
                 cancel: CancelFn | None = None) -> SearchPlan:
     """Estimate the exhaustive search of size ``k`` and choose exhaustive or beam.
 
@@ -489,8 +489,11 @@ def plan_search(index: CountIndex, k: int, max_seconds: float = EXHAUSTIVE_SECON
     then scores up to a few evenly spread work units of size k and extrapolates their time per
     set to all C(n_pixels, k) sets. The search is exhaustive when ``exhaustive`` is True or the
     estimate is at most ``max_seconds``; otherwise a beam grows from the largest size whose own
-    exhaustive search fits ``max_seconds`` at the same rate per set (at least 1).
+    exhaustive search fits ``max_seconds`` at the same rate per set (at least 1). None:
+    :data:`EXHAUSTIVE_SECONDS`.
     """
+    if max_seconds is None:
+        max_seconds = EXHAUSTIVE_SECONDS
     p = index.n_pixels
     sets = n_combinations(p, k)
     t0 = time.perf_counter()
