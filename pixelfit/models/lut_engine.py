@@ -49,16 +49,20 @@ set (what a plain loop over ``itertools.combinations`` keeping the first strict 
 
 from __future__ import annotations
 
+import asyncio
 import threading
 import time
 import warnings
 from collections.abc import Callable, Iterator
+from concurrent.futures import CancelledError
 from dataclasses import dataclass
 from math import comb
 
 import numpy as np
 from joblib import Parallel, delayed, effective_n_jobs
 from threadpoolctl import threadpool_limits
+
+from pixelfit.errors import TrainingError
 
 #: Words in one unit's AND buffer (uint64, 8 MiB) and pattern-count array: bounds memory per worker.
 CHUNK_WORDS = 1 << 20
@@ -442,14 +446,15 @@ def run_units(func, index: CountIndex, units: list, n_jobs: int | None, cancel: 
     parallel = Parallel(n_jobs=n_jobs, prefer="threads", return_as="generator")
     results = parallel(delayed(func)(index, u, *args) for u in units)
     try:
-        for unit, result in zip(units, results):
+        for unit, result in zip(units, _cluster_errors(results)):
             if cancel is not None and cancel():
                 raise SearchCancelled
             yield unit, result
     finally:
         with warnings.catch_warnings():
             # joblib warns when a cancelled search leaves finished units unread; that is the point.
-            warnings.filterwarnings("ignore", message=".*tasks have been successfully executed", category=UserWarning)
+            warnings.filterwarnings("ignore", message=".*tasks (have been successfully executed|which were still being "
+                                    "processed)", category=UserWarning)
             results.close()
 
 
@@ -521,6 +526,24 @@ def plan_search(index: CountIndex, k: int, max_seconds: float | None = None, exh
         return SearchPlan(k, sets, "exhaustive", estimate, k)
     exact = max([j for j in range(1, k) if n_combinations(p, j) * per_set <= max_seconds], default=1)
     return SearchPlan(k, sets, "beam", estimate, exact)
+
+
+def _cluster_errors(results: Iterator) -> Iterator:
+    """``results``, with a cluster's failures (a lost worker, lost data) as one clear error.
+
+    A cluster engine retries the units of a worker that dies; what it cannot recover ends the
+    search with :class:`~pixelfit.errors.TrainingError`, never with a result missing units.
+    """
+    try:
+        yield from results
+    except (SearchCancelled, TrainingError, KeyboardInterrupt, SystemExit, GeneratorExit):
+        raise
+    except BaseException as exc:  # a cancelled future is an asyncio.CancelledError: no Exception
+        if not (type(exc).__module__.startswith("distributed")
+                or isinstance(exc, CancelledError | asyncio.CancelledError)):
+            raise
+        raise TrainingError(f"the cluster lost work of the search ({type(exc).__name__}: {exc}); "
+                            "no result was kept: fit again") from exc
 
 
 def exhaustive_best(
