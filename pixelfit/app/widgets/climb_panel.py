@@ -35,6 +35,11 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
         self.folds.setToolTip("Cross-validation folds on the training part (needed for the recommendation)")
         self.max_size.valueChanged.connect(self._write_back)
         self.folds.valueChanged.connect(self._write_back)
+        self.scheduler = QtWidgets.QLineEdit()
+        self.scheduler.setPlaceholderText("this machine")
+        self.scheduler.setToolTip("A Dask scheduler's address (tcp://host:8786): the lut searches run on its "
+                                  "workers. Needs pip install 'pixelfit[cluster]'. Empty: this machine.")
+        self.scheduler.editingFinished.connect(self._write_back)
         self.plan_label = QtWidgets.QLabel("")
         self.plan_label.setWordWrap(True)
         climb = QtWidgets.QToolButton()
@@ -52,6 +57,7 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
         form.addRow(grid)
         form.addRow("largest size", self.max_size)
         form.addRow("folds", self.folds)
+        form.addRow("cluster", self.scheduler)
         form.addRow(self.plan_label)
         buttons = QtWidgets.QHBoxLayout()
         buttons.addWidget(climb)
@@ -68,7 +74,8 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
     def _write_back(self, *_):
         s = self.session
         s.set_ladder(families=[n for n, cb in self.checks.items() if cb.isChecked()],
-                     max_size=self.max_size.value() or None, folds=self.folds.value())
+                     max_size=self.max_size.value() or None, folds=self.folds.value(),
+                     scheduler=self.scheduler.text())
 
     def refresh(self) -> None:
         s = self.session
@@ -83,6 +90,9 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
             spin.setValue(value)
             spin.setEnabled(not s.running)
             spin.blockSignals(False)
+        if self.scheduler.text().strip() != (s.scheduler or ""):
+            self.scheduler.setText(s.scheduler or "")
+        self.scheduler.setEnabled(not s.running)
         if not s.running:
             try:
                 n = len(s.plan())
