@@ -38,9 +38,16 @@ these loops), or any joblib backend the caller activates, e.g. a cluster engine'
     with joblib.parallel_config(backend="dask"):   # after dask.distributed.Client(...)
         rule.fit(X, y)
 
-There the index (packed columns and tables, a few MB) is pickled to the workers with the units
-(joblib memory-maps its arrays for a process backend), which pays only for long searches.
-Progress is reported and cancellation checked as each unit's result comes back.
+There the index (packed columns and tables, a few MB) travels to the workers once per search:
+joblib's Dask backend scatters an argument whose size (``CountIndex.__sizeof__``) is large;
+``pixelfit.ladder.cluster_engine`` opens such a client for ``--scheduler``. Progress is reported
+and cancellation checked as each unit's result comes back; a search that does not get every
+unit's result back raises instead of returning a smaller optimum.
+
+Exhaustive or beam
+------------------
+:func:`plan_search` times a few work units of the search and extrapolates to all of its sets;
+a search estimated over :data:`EXHAUSTIVE_SECONDS` becomes a beam unless forced.
 
 Pattern code convention: bit j of a pattern code is the value of the j-th pixel of the set, the
 pixel set being sorted ascending. Ties in training error go to the lexicographically first pixel
