@@ -22,6 +22,7 @@ from pixelfit.models.lut_engine import (
     plan_search,
 )
 
+
 class _BinaryRule(ClassifierMixin, BaseEstimator):
     """Shared input checks: binary targets; the positive class is ``classes_[1]``."""
 

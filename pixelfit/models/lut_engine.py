@@ -498,8 +498,8 @@ def plan_search(index: CountIndex, k: int, max_seconds: float | None = None, exh
     """Estimate the exhaustive search of size ``k`` and choose exhaustive or beam.
 
     Builds the all-ones tables the search needs (kept in ``index``, timed into the estimate),
-    then scores up to a few evenly spread work units of size k and extrapolates their time per
-    set to all C(n_pixels, k) sets. The search is exhaustive when ``exhaustive`` is True or the
+    then scores a few work units of size k (picked in proportion to their sets) and extrapolates
+    their processor time per set to all C(n_pixels, k) sets. The search is exhaustive when ``exhaustive`` is True or the
     estimate is at most ``max_seconds``; otherwise a beam grows from the largest size whose own
     exhaustive search fits ``max_seconds`` at the same rate per set (at least 1). None:
     :data:`EXHAUSTIVE_SECONDS`.
@@ -508,22 +508,26 @@ def plan_search(index: CountIndex, k: int, max_seconds: float | None = None, exh
         max_seconds = EXHAUSTIVE_SECONDS
     p = index.n_pixels
     sets = n_combinations(p, k)
-    t0 = time.perf_counter()
+    # Processor time of this thread, not wall time: on a shared machine the other processes'
+    # load would otherwise decide how exact a rule is.
+    t0 = time.thread_time()
     with threadpool_limits(1, user_api="blas"):
         for o in range(1, k):
             if index.table_fits(o):
                 index.table(o, cancel=cancel)
-        tables = time.perf_counter() - t0
+        tables = time.thread_time() - t0
         units = list(index.units(k - 1))
-        picks = np.unique(np.linspace(0, len(units) - 1, min(len(units), _CALIBRATION_UNITS)).astype(int))
+        # Sample sets, not units: a unit is picked with the share of the sets it holds.
+        cum = np.cumsum([(hi - lo) * (p - 1 - c) for _, c, lo, hi in units])
+        picks = np.unique(np.searchsorted(cum, np.linspace(0, cum[-1] - 1, _CALIBRATION_UNITS), side="right"))
         sampled, spent = 0, 0.0
         for i in picks:
             if cancel is not None and cancel():
                 raise SearchCancelled
             h, c, lo, hi = units[i]
-            t1 = time.perf_counter()
+            t1 = time.thread_time()
             _best_unit(index, units[i], 1)
-            spent += time.perf_counter() - t1
+            spent += time.thread_time() - t1
             sampled += (hi - lo) * (p - 1 - c)
             if spent >= CALIBRATION_SECONDS:
                 break
