@@ -142,7 +142,11 @@ class _ProgressBar:
         self.width = width
         self.tty = hasattr(self.stream, "isatty") and self.stream.isatty()
 
-    def update(self, done: int, total: int, message: str, rung_done: bool) -> None:
+    def update(self, done: int, total: int, message: str, rung_done: bool, notice: bool = False) -> None:
+        if notice:  # a fact to keep (a search's estimate): its own line, terminal or not
+            self.stream.write(("\r" + " " * 100 + "\r" if self.tty else "") + message + "\n")
+            self.stream.flush()
+            return
         if not self.tty and not rung_done:
             return
         filled = int(self.width * done / max(1, total))
@@ -184,7 +188,8 @@ def cmd_fit(args) -> int:
     if not rungs_plan:
         raise PixelfitError("no rung to train: --max-size and --sizes leave every family empty")
     settings = {"families": families, "max_size": args.max_size, "sizes": args.sizes, "folds": args.folds,
-                "split": args.split, "seed": args.seed, "spec": args.spec}
+                "split": args.split, "seed": args.seed, "spec": args.spec,
+                "exhaustive": args.exhaustive, "scheduler": args.scheduler}
     try:  # the lock is held from before training until the run is in place
         folder.open()
     except OccupiedFolderError as exc:
@@ -224,10 +229,11 @@ def _fit_into(args, folder, ds, prep, rungs_plan, settings, spec) -> int:
     done_rungs = []
     cancelled = False
     try:
-        for pr in run_ladder(prep, rungs_plan, args.folds, args.seed):
+        for pr in run_ladder(prep, rungs_plan, args.folds, args.seed, exhaustive=args.exhaustive,
+                             scheduler=args.scheduler):
             if pr.rung is not None:
                 done_rungs.append(pr.rung)
-            bar.update(pr.done, pr.total, pr.message, pr.rung is not None)
+            bar.update(pr.done, pr.total, pr.message, pr.rung is not None, pr.notice)
     except (KeyboardInterrupt, LadderCancelled):
         cancelled = True
     finally:
@@ -544,6 +550,11 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--confidence", type=float, metavar="C", help="confidence of the held-out lower bounds (0.95)")
     f.add_argument("--budget-bytes", type=int, metavar="N", help="rungs whose firmware takes more flash bytes "
                    "than this are over budget")
+    f.add_argument("--exhaustive", action="store_true",
+                   help="score every pixel set of each lut rung, however long it is estimated to take (by default "
+                        "a search estimated over 30 s becomes a beam search)")
+    f.add_argument("--scheduler", metavar="ADDRESS", help="run the lut searches on a Dask cluster through this "
+                   "scheduler (tcp://host:8786); needs pip install 'pixelfit[cluster]'")
     f.add_argument("--no-rules", dest="rules", action="store_false", help="do not write rules/<family>-<size>.json")
     f.set_defaults(func=cmd_fit)
 

@@ -7,6 +7,7 @@ never touches anything but data. Rungs that finished before a cancel are kept.
 
 from __future__ import annotations
 
+import contextlib
 import time
 import warnings
 from collections.abc import Callable, Generator, Iterator
@@ -34,7 +35,7 @@ from pixelfit.data import (
     pack_binarized,
     stratified_split,
 )
-from pixelfit.errors import TrainingError
+from pixelfit.errors import PixelfitError, TrainingError
 from pixelfit.evaluate import (
     cost_order,
     detection_metrics,
@@ -248,6 +249,11 @@ class Progress:
     total: int
     message: str
     rung: Rung | None = None
+    notice: bool = False  # a fact to keep in view (e.g. a search's estimate), not a step
+
+
+class _Notice(str):
+    """A message of :func:`_rung_steps` that is no step of the ladder."""
 
 
 def effective_folds(y: np.ndarray, folds: int, groups: np.ndarray | None = None) -> tuple[int, str | None]:
@@ -318,9 +324,9 @@ def _score(est, X) -> np.ndarray | None:
 
 
 def train_rung(prep: Prepared, family: str, size: int, folds: int = 5, seed: int = 0,
-               cancel: CancelFn | None = None) -> Rung:
+               cancel: CancelFn | None = None, exhaustive: bool = False) -> Rung:
     """Fit one rung on the training part, cross-validate it there, measure it on the held-out part."""
-    steps = _rung_steps(prep, family, size, folds, seed, cancel)
+    steps = _rung_steps(prep, family, size, folds, seed, cancel, exhaustive)
     while True:
         try:
             next(steps)
@@ -329,13 +335,29 @@ def train_rung(prep: Prepared, family: str, size: int, folds: int = 5, seed: int
 
 
 def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
-                cancel: CancelFn | None) -> Generator[str, None, Rung]:
-    """:func:`train_rung` as a generator: yields a message after each fit, returns the rung."""
+                cancel: CancelFn | None, exhaustive: bool = False,
+                cluster: bool = False) -> Generator[str, None, Rung]:
+    """:func:`train_rung` as a generator: yields a message after each fit, returns the rung.
+
+    A :class:`_Notice` among the messages is no step: for a lut rung, the search's estimate.
+    """
     fam = FAMILIES[family]
     t0 = time.perf_counter()
     notes: list[str] = []
     X, y = prep.X_train, prep.y_train
     template = fam.make(size, prep.n_pixels, seed)
+    plan = None
+    if isinstance(template, LutRule):
+        # One decision per rung, on the whole training part, so that every fold searches alike.
+        template.set_params(exhaustive=exhaustive, n_jobs=None if cluster else template.n_jobs)
+        try:
+            plan = template.plan(X, y, cancel=cancel)
+        except SearchCancelled:
+            raise LadderCancelled from None
+        template.set_params(exact_size=plan.largest_exact_size)
+        notice = _search_notice(family, size, plan, folds)
+        if notice:
+            yield notice
     cv = None
     oof = np.full(len(y), np.nan)
     if folds:
@@ -385,9 +407,12 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
         chosen_on = "cv" if folds and not np.isnan(oof).any() else "train"
         choice = oof if chosen_on == "cv" else _scores_of(est, X)
         operating = {"test_points": operating_points(prep.y_test, test_scores)}
+    search = fam.search_facts(est)
+    if plan is not None:
+        search = {**plan.as_dict(), **(search or {})}
     oof_ok = folds and not np.isnan(oof).any()
     rung = Rung(family, size, est, train, test, cv, figures, bound, used, importance, test_pred, test_scores,
-                operating, fam.search_facts(est), oof if oof_ok else None, notes=notes,
+                operating, search, oof if oof_ok else None, notes=notes,
                 seconds=time.perf_counter() - t0, choice_scores=choice, chosen_on=chosen_on, model=model)
     measure_integer(rung, prep.X_test, prep.y_test)
     return rung
@@ -406,20 +431,70 @@ def measure_integer(rung: Rung, X_test: np.ndarray, y_test: np.ndarray) -> None:
                       "on": "held-out", **quantization_check(float_pred, integer.predict(X_test), y_test)}
 
 
+def _search_notice(family: str, size: int, plan, folds: int) -> _Notice | None:
+    """What a user should see before a long or inexact search starts; None for a quick exact one."""
+    fits = f"{folds + 1} fits" if folds else "1 fit"
+    if plan.method == "exhaustive":
+        if plan.estimated_seconds < NOTICE_SECONDS:
+            return None
+        return _Notice(f"{family}-{size}: exhaustive search of {plan.sets:,} pixel sets, estimated "
+                       f"{plan.estimated_seconds:,.0f} s per fit ({fits})")
+    return _Notice(f"{family}-{size}: scoring all {plan.sets:,} pixel sets would take an estimated "
+                   f"{plan.estimated_seconds:,.0f} s per fit; beam search from the best sets of size "
+                   f"{plan.largest_exact_size} instead (--exhaustive scores them all)")
+
+
+#: An exhaustive search estimated at least this long is announced before it starts.
+NOTICE_SECONDS = 2.0
+
+
+@contextlib.contextmanager
+def cluster_engine(address: str | None):
+    """Run the exhaustive searches' work units on a Dask cluster while the context is open.
+
+    ``address`` is a scheduler's (``tcp://host:8786``); None: nothing changes. Needs the optional
+    ``cluster`` extra (``dask[distributed]``), imported only here. The client is closed on exit.
+    """
+    if not address:
+        yield
+        return
+    try:
+        import joblib
+        from dask.distributed import Client
+    except ImportError:
+        raise PixelfitError("--scheduler needs Dask: pip install 'pixelfit[cluster]'") from None
+    try:
+        client = Client(address, timeout=CLUSTER_CONNECT_SECONDS, set_as_default=False)
+    except (OSError, TimeoutError) as exc:
+        raise PixelfitError(f"--scheduler {address}: cannot reach the Dask scheduler ({exc})") from None
+    try:
+        with joblib.parallel_config(backend="dask", client=client):
+            yield
+    finally:
+        client.close()
+
+
+#: Seconds to wait for a Dask scheduler to answer.
+CLUSTER_CONNECT_SECONDS = 10
+
+
 def run_ladder(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, seed: int = 0,
-               cancel: CancelFn | None = None) -> Iterator[Progress]:
+               cancel: CancelFn | None = None, exhaustive: bool = False,
+               scheduler: str | None = None) -> Iterator[Progress]:
     """Train every rung in order, yielding a :class:`Progress` per step.
 
     Raises :class:`LadderCancelled` between steps when ``cancel()`` returns True. Call
     :func:`conclude` on the finished rungs to mark the recommended one and the comparisons.
+    ``exhaustive`` makes every lut search exhaustive whatever its estimated time; ``scheduler``
+    (a Dask scheduler's address) runs the lut searches' work units on that cluster.
     """
     # Ladder matrices are small: threads in BLAS only add overhead (and stall badly on a busy
     # machine), so numeric libraries run single-threaded while the ladder trains.
-    with threadpool_limits(limits=1):
-        yield from _run(prep, rungs, folds, seed, cancel)
+    with threadpool_limits(limits=1), cluster_engine(scheduler):
+        yield from _run(prep, rungs, folds, seed, cancel, exhaustive, bool(scheduler))
 
 
-def _run(prep, rungs, folds, seed, cancel) -> Iterator[Progress]:
+def _run(prep, rungs, folds, seed, cancel, exhaustive=False, cluster=False) -> Iterator[Progress]:
     seed = check_seed(seed)
     folds, fold_note = effective_folds(prep.y_train, folds, prep.train_groups)
     notes = [n for n in (fold_note, identical_note(prep.X_train)) if n]
@@ -429,13 +504,16 @@ def _run(prep, rungs, folds, seed, cancel) -> Iterator[Progress]:
     for note in notes:
         yield Progress(done, total, note)
     for family, size in rungs:
-        steps = _rung_steps(prep, family, size, folds, seed, cancel)
+        steps = _rung_steps(prep, family, size, folds, seed, cancel, exhaustive, cluster)
         while True:
             try:
                 message = next(steps)
             except StopIteration as stop:
                 rung = stop.value
                 break
+            if isinstance(message, _Notice):
+                yield Progress(done, total, str(message), notice=True)
+                continue
             done += 1
             if done % per_rung:  # the last step of a rung is reported with the rung itself
                 yield Progress(done, total, message)

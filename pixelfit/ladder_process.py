@@ -94,7 +94,7 @@ def slim(prep: Prepared) -> Prepared:
 
 
 def _serve(conn: multiprocessing.connection.Connection, prep: Prepared, rungs: list[tuple[str, int]], folds: int,
-           seed: int) -> None:
+           seed: int, scheduler: str | None = None) -> None:
     """The trainer's main: run the ladder, send each record, stop when asked. Runs in the child."""
     asked = [False]
 
@@ -108,7 +108,7 @@ def _serve(conn: multiprocessing.connection.Connection, prep: Prepared, rungs: l
 
     try:
         try:
-            for pr in run_ladder(prep, rungs, folds, seed, cancel):
+            for pr in run_ladder(prep, rungs, folds, seed, cancel, scheduler=scheduler):
                 conn.send(("progress", pr))
         except LadderCancelled:
             conn.send(("cancelled", None))
@@ -134,7 +134,7 @@ def _refusal(name: str, message: str) -> errors.PixelfitError:
 
 
 def run_ladder_in_process(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, seed: int = 0,
-                          cancel: CancelFn | None = None) -> Iterator[Progress]:
+                          cancel: CancelFn | None = None, scheduler: str | None = None) -> Iterator[Progress]:
     """:func:`pixelfit.ladder.run_ladder` in a child process; yields the same :class:`Progress` records.
 
     Raises :class:`LadderCancelled` once the child has stopped after ``cancel()`` returned True (or
@@ -146,7 +146,7 @@ def run_ladder_in_process(prep: Prepared, rungs: list[tuple[str, int]], folds: i
     ctx = _get_context()
     here, there = ctx.Pipe(duplex=True)
     proc = ctx.Process(target=_serve, name="pixelfit-trainer", daemon=True,
-                       args=(there, slim(prep), list(rungs), folds, seed))
+                       args=(there, slim(prep), list(rungs), folds, seed, scheduler))
     try:
         proc.start()
     except OSError as exc:  # the new process died before it took its work

@@ -427,3 +427,19 @@ def test_closing_mid_climb_ends_the_trainer(qtbot, window, class_folder):
     w.stop_worker()
     assert time.perf_counter() - t < 10
     assert w.worker is None and _trainers() == []
+
+
+def test_cluster_field_goes_to_the_session_and_the_run(qtbot, window, class_folder):
+    w, s = window, window.session
+    assert w.open_path(class_folder)
+    field = w.climb.scheduler
+    field.setText("  tcp://10.0.0.5:8786 ")
+    field.editingFinished.emit()
+    assert s.scheduler == "tcp://10.0.0.5:8786"
+    spec = s.start_run()
+    assert spec is not None and spec.scheduler == "tcp://10.0.0.5:8786"
+    s.running = False  # nothing was started: the spec is only inspected
+    field.setText("")
+    field.editingFinished.emit()
+    assert s.scheduler is None and s.start_run().scheduler is None
+    s.running = False

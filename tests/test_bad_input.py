@@ -9,8 +9,8 @@ import pytest
 from pixelfit.cli import main
 from pixelfit.data import Binarizer, Dataset, choose_positive, stratified_split
 from pixelfit.errors import PixelfitError
-from pixelfit.ladder import effective_folds, prepare, run_ladder
 from pixelfit.families import parse_size_overrides, plan_rungs
+from pixelfit.ladder import effective_folds, prepare, run_ladder
 
 
 def _dataset(rng, n_pos=12, n_neg=28, shape=(6, 6)) -> Dataset:

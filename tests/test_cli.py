@@ -64,24 +64,43 @@ def test_bad_arguments(class_folder, tmp_path, capsys):
     assert "unknown family" in capsys.readouterr().err
 
 
-def test_beam_rungs_are_marked_in_the_table(tmp_path, capsys):
-    # 12x12 patches: C(144, 3) = 487,344 pixel sets are all tried, C(144, 4) = 17,610,000 are more
-    # than the exhaustive budget, so lut-4 comes from the beam search and must say so.
+def test_fit_records_the_search_and_announces_a_long_or_inexact_one(class_folder, tmp_path, capsys, monkeypatch):
     import json
 
-    import numpy as np
+    import pixelfit.ladder as ladder
 
-    rng = np.random.default_rng(2)
-    imgs = rng.integers(0, 256, (120, 12, 12), dtype=np.uint8)
-    labels = np.where((imgs[:, 3, 3] > 127) ^ (imgs[:, 6, 8] > 127), "x", "y")
-    np.savez(tmp_path / "b.npz", images=imgs, labels=labels)
-    out = tmp_path / "o"
-    assert main(["fit", str(tmp_path / "b.npz"), "--out", str(out), "--families", "lut", "--sizes", "lut=3,4",
-                 "--folds", "0", "--no-rules"]) == 0
-    text = capsys.readouterr().out
-    search = {r["size"]: r["search"]["method"] for r in json.loads((out / "summary.json").read_text())["rungs"]}
-    assert search == {3: "exhaustive", 4: "beam"}
-    rows = {line.split()[0]: line for line in text.splitlines() if line.startswith("lut-")}
-    assert "(beam)" in rows["lut-4"] and "(beam)" not in rows["lut-3"]
-    footnote = [line for line in text.splitlines() if line.startswith("(beam) ")]
-    assert len(footnote) == 1 and "beam search" in footnote[0] and "4,000,000" in footnote[0]
+    monkeypatch.setattr(ladder, "NOTICE_SECONDS", 0.0)  # announce every exhaustive search
+    out = tmp_path / "ex"
+    assert main(["fit", str(class_folder), "--out", str(out), "--families", "lut", "--sizes", "lut=2",
+                 "--folds", "0", "--exhaustive"]) == 0
+    err = capsys.readouterr().err
+    assert "lut-2: exhaustive search of 2,016 pixel sets, estimated" in err  # C(64, 2), 8x8 patches
+    summary = json.loads((out / "summary.json").read_text())
+    search = summary["rungs"][0]["search"]
+    assert search["method"] == "exhaustive" and search["sets"] == search["candidates"] == 2016
+    assert search["largest_exact_size"] == 2 and search["estimated_seconds"] >= 0
+    assert summary["settings"]["exhaustive"] is True
+    rule = json.loads((out / "rules" / "lut-2.json").read_text())
+    assert rule["evaluation"]["search"]["method"] == "exhaustive"
+
+
+def test_fit_without_time_for_an_exhaustive_search_says_beam_everywhere(class_folder, tmp_path, capsys,
+                                                                         monkeypatch):
+    import json
+
+    from pixelfit.models import lut_engine
+
+    monkeypatch.setattr(lut_engine, "EXHAUSTIVE_SECONDS", 0.0)
+    out = tmp_path / "beam"
+    assert main(["fit", str(class_folder), "--out", str(out), "--families", "lut", "--sizes", "lut=3",
+                 "--folds", "0"]) == 0
+    captured = capsys.readouterr()
+    err = captured.err
+    assert "lut-3: scoring all 41,664 pixel sets would take an estimated" in err and "size 1 instead" in err
+    search = json.loads((out / "summary.json").read_text())["rungs"][0]["search"]
+    assert search["method"] == "beam" and search["largest_exact_size"] == 1
+    # the table marks the beam rung and explains the mark once
+    rows = [line for line in captured.out.splitlines() if line.startswith("lut-3")]
+    assert len(rows) == 1 and "(beam)" in rows[0]
+    assert sum(line.startswith("(beam) ") for line in captured.out.splitlines()) == 1
+

@@ -57,7 +57,7 @@ def test_lut_optimal_on_random_data(k, seed):
 
 def test_lut_beam_beyond_budget(rng):
     X, y, pixels = planted(rng)
-    rule = LutRule(k=3, max_exhaustive=100).fit(X, y)  # C(36,3) > 100: beam from k=1
+    rule = LutRule(k=3, max_seconds=0).fit(X, y)  # no time for any exhaustive search: beam from k=1
     assert rule.search_ == "beam"
     assert rule.train_errors_ >= brute_force_lut(X, y, 3)[0]
 
@@ -122,7 +122,9 @@ def test_every_rung_measured(ladder):
         assert r.importance["permutation"].shape == prep.shape
         assert r.figures["parameters"] >= 1
     by = {r.key: r for r in rungs}
-    assert by["lut-3"].search == {"method": "exhaustive", "candidates": 41664}  # C(64, 3)
+    search = by["lut-3"].search
+    assert search["method"] == "exhaustive" and search["candidates"] == search["sets"] == 41664  # C(64, 3)
+    assert search["largest_exact_size"] == 3 and search["estimated_seconds"] >= 0
     native = by["lut-3"].importance["native"]
     assert np.count_nonzero(native) <= 3 and native.max() > 0
     assert by["lut-2"].versus_smaller["size"] == 1

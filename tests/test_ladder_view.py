@@ -121,14 +121,18 @@ def test_a_click_selects_the_nearest_point(qtbot, session):
     plot.detach()
 
 
-def test_window_table_marks_beam_rungs(qtbot, tmp_path):
-    # 12x12: C(144, 3) pixel sets are all tried, C(144, 4) = 17,610,000 are beyond the budget.
-    s = _session(tmp_path, 12, ["lut"], plan=[("lut", 3), ("lut", 4)], folds=0)
+def test_window_table_marks_beam_rungs(qtbot, tmp_path, monkeypatch):
+    # A search estimated over this many seconds becomes a beam: 0.05 s lets lut-1 be exhaustive
+    # and leaves lut-4 (C(144, 4) = 17,610,000 pixel sets) to the beam.
+    from pixelfit.models import lut_engine
+
+    monkeypatch.setattr(lut_engine, "EXHAUSTIVE_SECONDS", 0.05)
+    s = _session(tmp_path, 12, ["lut"], plan=[("lut", 1), ("lut", 4)], folds=0)
     assert [r.search["method"] for r in s.rungs] == ["exhaustive", "beam"]
     table = LadderTable(s)
     qtbot.addWidget(table)
     model = table.table_model
     names = [model.item(i, 0).text() for i in range(model.rowCount())]
-    assert names == ["lut-3", "lut-4 (beam)"]
+    assert names == ["lut-1", "lut-4 (beam)"]
     assert "beam search" in model.item(1, 0).toolTip() and "beam search" not in model.item(0, 0).toolTip()
     table.detach()

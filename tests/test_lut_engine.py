@@ -196,11 +196,82 @@ def test_progress_reaches_the_total_and_cancel_stops(rng, monkeypatch):
 def test_rule_falls_back_to_a_beam_that_reports_its_own_error_and_cancels(rng):
     X = rng.random((300, 30)) < 0.5
     y = (X[:, 4] & X[:, 11]) ^ (rng.random(300) < 0.15)
-    rule = LutRule(k=3, max_exhaustive=500, beam_width=8).fit(X, y)  # C(30, 3) = 4060 > 500
+    rule = LutRule(k=3, exact_size=2, beam_width=8).fit(X, y)
     assert rule.search_ == "beam"
     assert rule.train_errors_ == int(np.minimum(rule.counts_[:, 0], rule.counts_[:, 1]).sum())
     stepped = []  # the rule reports progress only from the beam: cancel once it has stepped
     with pytest.raises(SearchCancelled):
-        LutRule(k=4, max_exhaustive=500, beam_width=8).fit(
+        LutRule(k=4, exact_size=2, beam_width=8).fit(
             X, y, progress=lambda d, t: stepped.append(d), cancel=lambda: bool(stepped))
     assert stepped == [1]
+
+
+@pytest.mark.parametrize("seed", range(3))
+@pytest.mark.parametrize("k", [4, 5])
+def test_four_and_five_pixel_optimum_equals_brute_force(seed, k):
+    X, y = random_case(200 + seed, repeats=seed == 1)
+    if X.shape[1] < k + 2:  # enough pixels for more than a handful of sets
+        X = np.column_stack([X, np.random.default_rng(seed).random((len(X), k + 2 - X.shape[1])) < 0.5])
+    combos, errs = brute_errors(X, y, k)
+    first = int(np.argmin(errs))
+    best, best_e, _ = exhaustive_best(CountIndex(X, y), k)
+    assert best[0].tolist() == combos[first].tolist() and best_e[0] == errs[first]
+    rule = LutRule(k=k).fit(X, y)  # the default plan: a search this small is exhaustive
+    assert rule.search_ == "exhaustive" and rule.pixels_.tolist() == combos[first].tolist()
+
+
+class _Clock:
+    """A stand-in for time.thread_time that advances a fixed step per reading."""
+
+    def __init__(self, step):
+        self.now, self.step = 0.0, step
+
+    def thread_time(self):
+        self.now += self.step
+        return self.now
+
+
+def test_plan_follows_the_estimated_time_not_the_count(rng, monkeypatch):
+    X = rng.random((300, 12)) < 0.5
+    y = rng.random(300) < 0.4
+    monkeypatch.setattr(engine, "time", _Clock(0.001))  # every timed span is 1 ms: a known rate
+    plan = engine.plan_search(CountIndex(X, y), 4, max_seconds=1e9)
+    assert plan.method == "exhaustive" and plan.largest_exact_size == 4 and plan.sets == comb(12, 4)
+    # The estimate is the table time plus the sampled units' rate times every set; units are one
+    # reading apart, so the rate is known from the units' sizes.
+    est = plan.estimated_seconds
+    assert est > 0
+    tight = engine.plan_search(CountIndex(X, y), 4, max_seconds=est * 0.99)
+    assert tight.method == "beam" and tight.estimated_seconds == pytest.approx(est)
+    per_set = (est - 0.001) / comb(12, 4)  # tables took one 1 ms span
+    assert tight.largest_exact_size == max(j for j in (1, 2, 3) if comb(12, j) * per_set <= est * 0.99)
+    forced = engine.plan_search(CountIndex(X, y), 4, max_seconds=0.0, exhaustive=True)
+    assert forced.method == "exhaustive" and forced.largest_exact_size == 4
+    nothing = engine.plan_search(CountIndex(X, y), 4, max_seconds=0.0)
+    assert nothing.method == "beam" and nothing.largest_exact_size == 1
+
+
+def test_rule_records_its_plan_and_its_exact_size(rng):
+    X = rng.random((300, 12)) < 0.5
+    y = (X[:, 2] & X[:, 9]) ^ (rng.random(300) < 0.2)
+    rule = LutRule(k=3, max_seconds=0.0).fit(X, y)
+    assert rule.search_ == "beam" and rule.largest_exact_size_ == 1 and rule.plan_.method == "beam"
+    exact = LutRule(k=3, max_seconds=0.0, exhaustive=True).fit(X, y)
+    combos, errs = brute_errors(X, y, 3)
+    assert exact.search_ == "exhaustive" and exact.pixels_.tolist() == combos[int(np.argmin(errs))].tolist()
+    fixed = LutRule(k=3, exact_size=2).fit(X, y)
+    assert fixed.plan_ is None and fixed.search_ == "beam" and fixed.largest_exact_size_ == 2
+
+
+def test_a_lost_unit_is_an_error_never_a_smaller_search(rng, monkeypatch):
+    X = rng.random((100, 10)) < 0.5
+    y = rng.random(100) < 0.5
+    real = engine.run_units
+
+    def drop_last(*args, **kwargs):
+        items = list(real(*args, **kwargs))
+        yield from items[:-1]
+
+    monkeypatch.setattr(engine, "run_units", drop_last)
+    with pytest.raises(RuntimeError, match="scored"):
+        exhaustive_best(CountIndex(X, y), 3)

@@ -113,6 +113,7 @@ class RunSpec:
     plan: list[tuple[str, int]]
     folds: int
     seed: int
+    scheduler: str | None = None  # a Dask scheduler's address: the lut searches run on that cluster
 
 
 class Session:
@@ -131,6 +132,7 @@ class Session:
         self.families: list[str] = list(DEFAULT_FAMILIES)
         self.max_size: int | None = 8
         self.folds = 5
+        self.scheduler: str | None = None
         self.running = False
         self.progress_state: tuple[int, int, str] = (0, 0, "")
         self.run_prep: Prepared | None = None  # the prepared data the current rungs were trained on
@@ -305,14 +307,16 @@ class Session:
     # ---- ladder -------------------------------------------------------------------------------
 
     def set_ladder(self, families: list[str] | None = None, max_size: int | None | str = "keep",
-                   folds: int | None = None) -> None:
-        """Ladder settings; ``max_size=None`` means no cap."""
+                   folds: int | None = None, scheduler: str | None = "keep") -> None:
+        """Ladder settings; ``max_size=None`` means no cap; ``scheduler`` '' or None: this machine."""
         if families is not None:
             self.families = [f for f in FAMILY_ORDER if f in families]
         if max_size != "keep":
             self.max_size = None if max_size is None else int(max_size)
         if folds is not None:
             self.folds = int(folds)
+        if scheduler != "keep":
+            self.scheduler = (scheduler or "").strip() or None
         self._emit("settings")
 
     def _require_prep(self) -> Prepared:
@@ -354,7 +358,7 @@ class Session:
         self.progress_state = (0, 0, "starting")
         self._emit("run")
         self.say(f"climbing {len(plan)} rungs on {prep.binarizer.describe()} patches")
-        return RunSpec(prep, plan, self.folds, self.seed)
+        return RunSpec(prep, plan, self.folds, self.seed, self.scheduler)
 
     def report_progress(self, done: int, total: int, message: str) -> None:
         self.progress_state = (done, total, message)

@@ -61,7 +61,8 @@ class LadderWorker(QtCore.QThread):
     def run(self) -> None:  # runs in the worker thread
         spec = self._spec
         try:
-            for pr in run_ladder_in_process(spec.prep, spec.plan, spec.folds, spec.seed, cancel=self._cancel.is_set):
+            for pr in run_ladder_in_process(spec.prep, spec.plan, spec.folds, spec.seed, cancel=self._cancel.is_set,
+                                            scheduler=spec.scheduler):
                 if pr.rung is not None:
                     self.rung_ready.emit(pr.rung)
                 self.progressed.emit(pr.done, pr.total, pr.message)

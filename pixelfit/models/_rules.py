@@ -16,19 +16,18 @@ from pixelfit.models.lut_engine import (
     CancelFn,
     CountIndex,
     ProgressFn,
+    SearchPlan,
     beam_best,
     exhaustive_best,
-    n_combinations,
+    plan_search,
 )
 
-#: Default most pixel sets scored exhaustively per k; beyond it the search is a beam.
-#: C(100, 4) = 3,921,225 fits under it, so k <= 4 is exhaustive for patches of up to 10x10.
-MAX_EXHAUSTIVE = 4_000_000
 #: What the CLI and the window put after the name of a truth-table rung found by the beam search,
 #: and the footnote that explains the mark.
 BEAM_MARK = " (beam)"
-BEAM_NOTE = (f"(beam) truth table found by a beam search, not by trying every pixel set (more than "
-             f"{MAX_EXHAUSTIVE:,} of that size): it may not be the best table of its size on the training patches")
+BEAM_NOTE = ("(beam) truth table found by a beam search, not by trying every pixel set (that was estimated to "
+             "take too long; `--exhaustive` forces it): it may not be the best table of its size on the training "
+             "patches")
 
 
 def is_beam(search: dict | None) -> bool:
@@ -116,16 +115,24 @@ class LutRule(_BinaryRule):
     ----------
     k : int
         Number of pixels the rule looks at.
-    max_exhaustive : int
-        Score every k-subset when there are at most this many; otherwise grow a beam from the
-        largest size that is still exhaustive.
+    max_seconds : float or None
+        Score every k-subset when that search is estimated (by timing a few of its work units
+        first) to take at most this long; otherwise grow a beam from the largest size whose
+        exhaustive search fits the same time. None: ``lut_engine.EXHAUSTIVE_SECONDS`` (30 s).
+    exhaustive : bool
+        Score every k-subset whatever the estimate.
+    exact_size : int or None
+        Skip the estimate: search exhaustively up to this size and grow a beam from there to k
+        (``exact_size >= k``: exhaustive). The ladder decides once per rung and sets it, so that
+        every fold of a rung searches the same way.
     beam_width : int
         Pixel sets kept per step of the beam search.
     n_jobs : int or None
-        Threads for the exhaustive search (-1: all cores; None: what an active
-        ``joblib.parallel_config`` says). The result does not depend on it. The default is 1:
-        on a quiet 2-core machine two threads were no faster than one (k=4 on 10,000 9x9 patches:
-        1.24 s against 0.97 s; ``benchmarks/README.md``), the counting being bound by memory.
+        Workers for the exhaustive search (-1: all cores; None: what an active
+        ``joblib.parallel_config`` says, e.g. a cluster's). The result does not depend on it. The
+        default is 1: on a quiet 2-core machine two threads were no faster than one (k=4 on
+        10,000 9x9 patches: 1.24 s against 0.97 s; ``benchmarks/README.md``), the counting being
+        bound by memory.
 
     Attributes
     ----------
@@ -139,17 +146,34 @@ class LutRule(_BinaryRule):
     rate_ : ndarray of shape (2^k,), float
         Fraction of positives per pattern (unseen patterns: the training rate); the score.
     search_ : {'exhaustive', 'beam'}
+    plan_ : SearchPlan or None
+        The estimate and decision (None when ``exact_size`` decided).
+    largest_exact_size_ : int
+        The largest size searched exhaustively (k when ``search_`` is 'exhaustive').
     n_candidates_ : int
         Pixel sets scored at size k (for a beam: over all its steps).
     train_errors_ : int
     """
 
-    def __init__(self, k: int = 1, max_exhaustive: int = MAX_EXHAUSTIVE, beam_width: int = 256,
-                 n_jobs: int | None = 1):
+    def __init__(self, k: int = 1, max_seconds: float | None = None, exhaustive: bool = False,
+                 exact_size: int | None = None, beam_width: int = 256, n_jobs: int | None = 1):
         self.k = k
-        self.max_exhaustive = max_exhaustive
+        self.max_seconds = max_seconds
+        self.exhaustive = exhaustive
+        self.exact_size = exact_size
         self.beam_width = beam_width
         self.n_jobs = n_jobs
+
+    def plan(self, X, y, cancel: CancelFn | None = None) -> SearchPlan:
+        """Estimate the exhaustive search on this data and decide exhaustive or beam (no fit)."""
+        X, yb = self._check_fit(X, y)
+        return plan_search(CountIndex(X, yb), self._k(X), self.max_seconds, self.exhaustive, cancel)
+
+    def _k(self, X) -> int:
+        p, k = X.shape[1], int(self.k)
+        if not 1 <= k <= p:
+            raise TrainingError(f"lut size k={k} must be between 1 and the number of pixels ({p})")
+        return k
 
     def fit(self, X, y, progress: ProgressFn | None = None, cancel: CancelFn | None = None):
         """Find the pixel set with the lowest training error and its table.
@@ -158,21 +182,23 @@ class LutRule(_BinaryRule):
         tie goes to the negative class, an unseen pattern gets the overall training majority.
         """
         X, yb = self._check_fit(X, y)
-        p = X.shape[1]
-        k = int(self.k)
-        if not 1 <= k <= p:
-            raise TrainingError(f"lut size k={k} must be between 1 and the number of pixels ({p})")
-        feasible = [j for j in range(1, k + 1) if n_combinations(p, j) <= self.max_exhaustive]
+        k = self._k(X)
         index = CountIndex(X, yb)
-        if feasible and feasible[-1] == k:
+        self.plan_ = None
+        if self.exact_size is not None:
+            exact = min(k, max(1, int(self.exact_size)))
+        else:
+            self.plan_ = plan_search(index, k, self.max_seconds, self.exhaustive, cancel)
+            exact = self.plan_.largest_exact_size
+        if exact == k:
             best, errs, scored = exhaustive_best(index, k, progress=progress, cancel=cancel, n_jobs=self.n_jobs)
             self.search_ = "exhaustive"
         else:
-            k0 = feasible[-1] if feasible else 1
-            start, _, scored0 = exhaustive_best(index, k0, keep=self.beam_width, cancel=cancel, n_jobs=self.n_jobs)
+            start, _, scored0 = exhaustive_best(index, exact, keep=self.beam_width, cancel=cancel, n_jobs=self.n_jobs)
             best, errs, scored = beam_best(index, start, k, self.beam_width, progress=progress, cancel=cancel)
             scored += scored0
             self.search_ = "beam"
+        self.largest_exact_size_ = exact
         self.pixels_ = best[0].astype(np.intp)
         self.n_candidates_ = int(scored)
         self.train_errors_ = int(errs[0])

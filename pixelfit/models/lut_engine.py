@@ -38,9 +38,16 @@ these loops), or any joblib backend the caller activates, e.g. a cluster engine'
     with joblib.parallel_config(backend="dask"):   # after dask.distributed.Client(...)
         rule.fit(X, y)
 
-There the index (packed columns and tables, a few MB) is pickled to the workers with the units
-(joblib memory-maps its arrays for a process backend), which pays only for long searches.
-Progress is reported and cancellation checked as each unit's result comes back.
+There the index (packed columns and tables, a few MB) travels to the workers once per search:
+joblib's Dask backend scatters an argument whose size (``CountIndex.__sizeof__``) is large;
+``pixelfit.ladder.cluster_engine`` opens such a client for ``--scheduler``. Progress is reported
+and cancellation checked as each unit's result comes back; a search that does not get every
+unit's result back raises instead of returning a smaller optimum.
+
+Exhaustive or beam
+------------------
+:func:`plan_search` times a few work units of the search and extrapolates to all of its sets;
+a search estimated over :data:`EXHAUSTIVE_SECONDS` becomes a beam unless forced.
 
 Pattern code convention: bit j of a pattern code is the value of the j-th pixel of the set, the
 pixel set being sorted ascending. Ties in training error go to the lexicographically first pixel
@@ -49,13 +56,20 @@ set (what a plain loop over ``itertools.combinations`` keeping the first strict 
 
 from __future__ import annotations
 
+import asyncio
+import threading
+import time
 import warnings
 from collections.abc import Callable, Iterator
+from concurrent.futures import CancelledError
+from dataclasses import dataclass
 from math import comb
 
 import numpy as np
 from joblib import Parallel, delayed, effective_n_jobs
 from threadpoolctl import threadpool_limits
+
+from pixelfit.errors import TrainingError
 
 #: Words in one unit's AND buffer (uint64, 8 MiB) and pattern-count array: bounds memory per worker.
 CHUNK_WORDS = 1 << 20
@@ -66,6 +80,13 @@ _MAX_TABLE_ORDER = 24
 #: Searches smaller than this many words of AND + popcount run in the calling thread: below it,
 #: starting workers costs more than it saves (a k = 3 search on 10,000 9x9 patches is ~13M).
 PARALLEL_MIN_WORDS = 1 << 27
+
+#: An exhaustive search estimated to take at most this many seconds runs by default; a longer
+#: one becomes a beam search grown from the largest size that fits the same budget.
+EXHAUSTIVE_SECONDS = 30.0
+#: Time spent scoring sample units to estimate a search's length (the units are real work).
+CALIBRATION_SECONDS = 0.05
+_CALIBRATION_UNITS = 16
 
 ProgressFn = Callable[[int, int], None]
 CancelFn = Callable[[], bool]
@@ -204,6 +225,12 @@ class CountIndex:
     def n_words(self) -> int:
         return self.packed.shape[1]
 
+    def __sizeof__(self) -> int:
+        # What a process or cluster backend ships to its workers; a cluster engine sizes its
+        # transfers by it (joblib's Dask backend scatters an argument once when it is large).
+        arrays = [self.packed, self.word_weights, self._binom, *self._tables.values(), *self._colex.values()]
+        return object.__sizeof__(self) + sum(a.nbytes for a in arrays)
+
     # -- helpers -----------------------------------------------------------------------------
 
     def rank(self, T: np.ndarray) -> np.ndarray:
@@ -220,9 +247,14 @@ class CountIndex:
 
     def _count(self, words: np.ndarray) -> np.ndarray:
         """Difference counts from ANDed words (..., n_words) -> (...), int32."""
-        bits = np.bitwise_count(words)
-        flat = bits.reshape(-1, self.n_words).astype(self.word_weights.dtype)
-        return np.rint(flat @ self.word_weights).astype(np.int32).reshape(bits.shape[:-1])
+        shape = words.shape[:-1]
+        flat = words.reshape(-1, self.n_words)
+        bits = _scratch("bits", flat.shape, np.uint8)
+        np.bitwise_count(flat, out=bits)
+        weights = self.word_weights
+        wide = _scratch("wide", flat.shape, weights.dtype)
+        wide[...] = bits
+        return np.rint(wide @ weights).astype(np.int32).reshape(shape)
 
     def _prefix_and(self, P: np.ndarray) -> np.ndarray:
         """AND of the packed columns of each prefix row (m, j) -> (m, n_words)."""
@@ -240,7 +272,10 @@ class CountIndex:
         one popcount of ``n_words`` words per (prefix, d).
         """
         acc = self._prefix_and(P)
-        return self._count(acc[:, None, :] & self.packed[None, c + 1 :, :])
+        cols = self.packed[c + 1 :]
+        words = _scratch("and", (len(P), len(cols), self.n_words), np.uint64)
+        np.bitwise_and(acc[:, None, :], cols[None, :, :], out=words)
+        return self._count(words)
 
     def all_ones(self, T: np.ndarray) -> np.ndarray:
         """D(T) for each sorted row of ``T`` (m, o) -> (m,) int32, from a table if one is built.
@@ -348,6 +383,23 @@ class CountIndex:
         return (self.n_patches - np.abs(D).sum(axis=0)) // 2
 
 
+_SCRATCH = threading.local()
+
+
+def _scratch(name: str, shape: tuple[int, ...], dtype) -> np.ndarray:
+    """A reusable per-thread buffer of at least ``shape``: fresh multi-MB arrays cost page faults.
+
+    Returned arrays are views into a buffer kept for the thread; a second call with the same name
+    overwrites it, so callers use each one before asking for it again.
+    """
+    need = int(np.prod(shape))
+    store = _SCRATCH.__dict__
+    buf = store.get(name)
+    if buf is None or buf.dtype != dtype or buf.size < need:
+        buf = store[name] = np.empty(max(need, 1), dtype)
+    return buf[:need].reshape(shape)
+
+
 def _moebius(A: np.ndarray, h: int) -> None:
     """In place, over axis 0 of length 2^h: all-ones counts -> exact pattern counts.
 
@@ -401,15 +453,108 @@ def run_units(func, index: CountIndex, units: list, n_jobs: int | None, cancel: 
     parallel = Parallel(n_jobs=n_jobs, prefer="threads", return_as="generator")
     results = parallel(delayed(func)(index, u, *args) for u in units)
     try:
-        for unit, result in zip(units, results):
+        for unit, result in zip(units, _cluster_errors(results)):
             if cancel is not None and cancel():
                 raise SearchCancelled
             yield unit, result
     finally:
         with warnings.catch_warnings():
             # joblib warns when a cancelled search leaves finished units unread; that is the point.
-            warnings.filterwarnings("ignore", message=".*tasks have been successfully executed", category=UserWarning)
+            warnings.filterwarnings("ignore", message=".*tasks (have been successfully executed|which were still being "
+                                    "processed)", category=UserWarning)
             results.close()
+
+
+@dataclass(frozen=True)
+class SearchPlan:
+    """How a k-pixel search will run, decided from its estimated time.
+
+    Attributes
+    ----------
+    k : int
+    sets : int
+        Pixel sets of size k, C(n_pixels, k).
+    method : {'exhaustive', 'beam'}
+    estimated_seconds : float
+        Estimated time of the exhaustive search at size k in one worker on this machine (from
+        timing sample units of it), whether or not it runs.
+    largest_exact_size : int
+        The largest size searched exhaustively: k itself, or the size a beam grows from.
+    """
+
+    k: int
+    sets: int
+    method: str
+    estimated_seconds: float
+    largest_exact_size: int
+
+    def as_dict(self) -> dict:
+        return {"method": self.method, "sets": self.sets, "estimated_seconds": round(self.estimated_seconds, 3),
+                "largest_exact_size": self.largest_exact_size}
+
+
+def plan_search(index: CountIndex, k: int, max_seconds: float | None = None, exhaustive: bool = False,
+                cancel: CancelFn | None = None) -> SearchPlan:
+    """Estimate the exhaustive search of size ``k`` and choose exhaustive or beam.
+
+    Builds the all-ones tables the search needs (kept in ``index``, timed into the estimate),
+    then scores a few work units of size k (picked in proportion to their sets) and extrapolates
+    their processor time per set to all C(n_pixels, k) sets. The search is exhaustive when ``exhaustive`` is True or the
+    estimate is at most ``max_seconds``; otherwise a beam grows from the largest size whose own
+    exhaustive search fits ``max_seconds`` at the same rate per set (at least 1). None:
+    :data:`EXHAUSTIVE_SECONDS`.
+    """
+    if max_seconds is None:
+        max_seconds = EXHAUSTIVE_SECONDS
+    p = index.n_pixels
+    sets = n_combinations(p, k)
+    # Processor time of this thread, not wall time: on a shared machine the other processes'
+    # load would otherwise decide how exact a rule is.
+    t0 = time.thread_time()
+    with threadpool_limits(1, user_api="blas"):
+        for o in range(1, k):
+            if index.table_fits(o):
+                index.table(o, cancel=cancel)
+        tables = time.thread_time() - t0
+        units = list(index.units(k - 1))
+        # Sample sets, not units: a unit is picked with the share of the sets it holds.
+        cum = np.cumsum([(hi - lo) * (p - 1 - c) for _, c, lo, hi in units])
+        picks = np.unique(np.searchsorted(cum, np.linspace(0, cum[-1] - 1, _CALIBRATION_UNITS), side="right"))
+        sampled, spent = 0, 0.0
+        for i in picks:
+            if cancel is not None and cancel():
+                raise SearchCancelled
+            h, c, lo, hi = units[i]
+            t1 = time.thread_time()
+            _best_unit(index, units[i], 1)
+            spent += time.thread_time() - t1
+            sampled += (hi - lo) * (p - 1 - c)
+            if spent >= CALIBRATION_SECONDS:
+                break
+    per_set = spent / max(1, sampled)
+    estimate = tables + sets * per_set
+    if exhaustive or estimate <= max_seconds:
+        return SearchPlan(k, sets, "exhaustive", estimate, k)
+    exact = max([j for j in range(1, k) if n_combinations(p, j) * per_set <= max_seconds], default=1)
+    return SearchPlan(k, sets, "beam", estimate, exact)
+
+
+def _cluster_errors(results: Iterator) -> Iterator:
+    """``results``, with a cluster's failures (a lost worker, lost data) as one clear error.
+
+    A cluster engine retries the units of a worker that dies; what it cannot recover ends the
+    search with :class:`~pixelfit.errors.TrainingError`, never with a result missing units.
+    """
+    try:
+        yield from results
+    except (SearchCancelled, TrainingError, KeyboardInterrupt, SystemExit, GeneratorExit):
+        raise
+    except BaseException as exc:  # a cancelled future is an asyncio.CancelledError: no Exception
+        if not (type(exc).__module__.startswith("distributed")
+                or isinstance(exc, CancelledError | asyncio.CancelledError)):
+            raise
+        raise TrainingError(f"the cluster lost work of the search ({type(exc).__name__}: {exc}); "
+                            "no result was kept: fit again") from exc
 
 
 def exhaustive_best(
@@ -461,6 +606,8 @@ def exhaustive_best(
             done += (unit[3] - unit[2]) * (p - 1 - unit[1])
             if progress is not None:
                 progress(done, total)
+    if done != total:  # every unit's result must be in: a lost one could hide the optimum
+        raise RuntimeError(f"the search scored {done:,} of {total:,} pixel sets")
     return best_c, best_e, total
 
 

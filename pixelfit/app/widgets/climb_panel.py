@@ -55,6 +55,11 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
         self.answer = QtWidgets.QLabel("")
         self.answer.setWordWrap(True)
         self.answer.setTextInteractionFlags(QtCore.Qt.TextInteractionFlag.TextSelectableByMouse)
+        self.scheduler = QtWidgets.QLineEdit()
+        self.scheduler.setPlaceholderText("this machine")
+        self.scheduler.setToolTip("A Dask scheduler's address (tcp://host:8786): the lut searches run on its "
+                                  "workers. Needs pip install 'pixelfit[cluster]'. Empty: this machine.")
+        self.scheduler.editingFinished.connect(self._write_back)
         self.plan_label = QtWidgets.QLabel("")
         self.plan_label.setWordWrap(True)
         climb = QtWidgets.QToolButton()
@@ -76,6 +81,7 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
         form.addRow("recall ≥", self.spec_recall)
         form.addRow("confidence", self.spec_confidence)
         form.addRow("flash budget", self.spec_budget)
+        form.addRow("cluster", self.scheduler)
         form.addRow(self.plan_label)
         buttons = QtWidgets.QHBoxLayout()
         buttons.addWidget(climb)
@@ -119,7 +125,8 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
     def _write_back(self, *_):
         s = self.session
         s.set_ladder(families=[n for n, cb in self.checks.items() if cb.isChecked()],
-                     max_size=self.max_size.value() or None, folds=self.folds.value())
+                     max_size=self.max_size.value() or None, folds=self.folds.value(),
+                     scheduler=self.scheduler.text())
 
     def refresh(self) -> None:
         s = self.session
@@ -140,6 +147,9 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
             spin.setEnabled(not s.running)
             spin.blockSignals(False)
         self._show_answer()
+        if self.scheduler.text().strip() != (s.scheduler or ""):
+            self.scheduler.setText(s.scheduler or "")
+        self.scheduler.setEnabled(not s.running)
         if not s.running:
             try:
                 n = len(s.plan())
