@@ -83,6 +83,7 @@ def cmd_fit(args) -> int:
     from pixelfit.ladder import LadderCancelled, conclude, prepare, run_ladder
     from pixelfit.models import parse_families, parse_size_overrides, plan_rungs
     from pixelfit.outputs import write_fit_outputs
+    from pixelfit.review import library_versions
 
     ds = load_dataset(resolve_dataset_path(args.path))
     binarizer = Binarizer.parse(args.binarize, invert=args.invert)
@@ -97,6 +98,8 @@ def cmd_fit(args) -> int:
         raise PixelfitError(f"--out {args.out}: cannot create the folder ({exc.strerror or exc})") from None
     settings = {"families": families, "max_size": args.max_size, "sizes": args.sizes, "folds": args.folds,
                 "seed": args.seed, "target_precision": args.target_precision, "target_recall": args.target_recall}
+    settings["command"] = ["pixelfit", *getattr(args, "argv", [])]
+    settings["versions"] = library_versions()
     h, w = prep.shape
     print(f"{ds.source}: {len(ds)} patches of {h}x{w}; detecting {prep.positive!r} against {prep.negative!r}; "
           f"{len(prep.y_train)} train / {len(prep.y_test)} held-out"
@@ -127,6 +130,10 @@ def cmd_fit(args) -> int:
         print("no recommendation: it needs cross-validation (--folds of at least 2)")
     print(f"wrote {args.out}/summary.json, summary.csv, split.csv, ladder.png, heatmaps/"
           f"{', rules/' if args.rules and done_rungs else ''}")
+    if args.report:
+        from pixelfit.review import write_report
+
+        print(f"wrote {write_report(args.out, dataset=ds)}")
     if cancelled:
         print(f"interrupted: {len(done_rungs)} of {len(rungs_plan)} rungs finished and were written", file=sys.stderr)
         return EXIT_INCOMPLETE
@@ -267,6 +274,13 @@ def cmd_export(args) -> int:
     return EXIT_OK
 
 
+def cmd_report(args) -> int:
+    from pixelfit.review import write_report
+
+    print(f"wrote {write_report(args.run, args.out)}")
+    return EXIT_OK
+
+
 def cmd_demo(args) -> int:
     from pixelfit.demo import write_demo_set
 
@@ -307,7 +321,16 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--target-precision", type=float, metavar="P", help="find the threshold meeting this precision")
     f.add_argument("--target-recall", type=float, metavar="R", help="find the threshold meeting this recall")
     f.add_argument("--no-rules", dest="rules", action="store_false", help="do not write rules/<family>-<size>.json")
+    f.add_argument("--report", action="store_true", help="also write the review page, report.html, into --out")
     f.set_defaults(func=cmd_fit)
+
+    rp = sub.add_parser("report", help="write the review page of a fit folder",
+                        description="Write one self-contained HTML page (pictures, tables and files inline; no "
+                        "script, no network) from the output folder of `pixelfit fit`, for a reviewer who "
+                        "does not run pixelfit.")
+    rp.add_argument("run", metavar="RUN_DIR", help="output folder of `pixelfit fit`")
+    rp.add_argument("--out", metavar="FILE.html", help="where to write the page (default RUN_DIR/report.html)")
+    rp.set_defaults(func=cmd_report)
 
     sh = sub.add_parser("show", help="print a readable summary of a rule file",
                         description="Family and size, pixels read (as a grid), metrics with intervals, bound, "
@@ -367,9 +390,11 @@ def cmd_gui(args) -> int:
 
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
+    argv = sys.argv[1:] if argv is None else list(argv)
     args = parser.parse_args(argv)
     if args.command is None:  # plain `pixelfit` opens the desktop application on the demo set
         args = parser.parse_args(["gui"])
+    args.argv = argv  # recorded in summary.json so a run says how it was made
     try:
         return int(args.func(args))
     except PixelfitError as exc:

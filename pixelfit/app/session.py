@@ -24,7 +24,9 @@ Events (name: when)
 
 from __future__ import annotations
 
+import dataclasses
 import os
+import tempfile
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -37,7 +39,8 @@ from pixelfit.evaluate import detection_metrics, threshold_for_target
 from pixelfit.firmware import export_c
 from pixelfit.ladder import Prepared, Rung, conclude, prepare
 from pixelfit.models import FAMILIES, FAMILY_ORDER, plan_rungs
-from pixelfit.outputs import error_curves
+from pixelfit.outputs import error_curves, write_fit_outputs
+from pixelfit.review import library_versions, write_report
 from pixelfit.rulefile import load_rule, save_rung
 
 EVENTS = ("dataset", "prep", "gallery", "settings", "run", "progress", "rungs", "selection", "threshold",
@@ -79,6 +82,7 @@ class Session:
         self.running = False
         self.progress_state: tuple[int, int, str] = (0, 0, "")
         self.run_prep: Prepared | None = None  # the prepared data the current rungs were trained on
+        self.run_settings: dict | None = None  # the settings of that run, as `pixelfit fit` records them
         self.planned = 0
         self.rungs: list[Rung] = []
         self.recommended: Rung | None = None
@@ -236,6 +240,7 @@ class Session:
             return None
         self._clear_rungs()
         self.run_prep = self.prep
+        self.run_settings = self._fit_settings()
         self.planned = len(plan)
         self.running = True
         self.progress_state = (0, 0, "starting")
@@ -280,6 +285,7 @@ class Session:
         self.recommended = None
         self.saved_paths = []
         self.run_prep = None
+        self.run_settings = None
         self._at_threshold = None
         if had:
             self._emit("rungs")
@@ -431,6 +437,56 @@ class Session:
         header, vectors = written
         self.say(f"exported {self.selected.key} as C to {header} (test vectors {vectors})")
         return Path(header), Path(vectors)
+
+
+    # ---- the review page ----------------------------------------------------------------------
+
+    def _fit_settings(self) -> dict:
+        """The current ladder settings as ``pixelfit fit`` records them, with the equivalent command."""
+        prep = self.prep
+        b = prep.binarizer
+        cmd = ["pixelfit", "fit", prep.dataset.source, "--out", "RUN_DIR",
+               "--binarize", f"fixed:{b.threshold:g}" if b.method == "fixed" else b.method]
+        if b.invert:
+            cmd.append("--invert")
+        cmd += ["--positive", prep.positive]
+        if not prep.presplit:
+            cmd += ["--test-fraction", f"{self.test_fraction:g}"]
+        cmd += ["--seed", str(self.seed), "--families", ",".join(self.families)]
+        if self.max_size is not None:
+            cmd += ["--max-size", str(self.max_size)]
+        cmd += ["--folds", str(self.folds)]
+        return {"families": list(self.families), "max_size": self.max_size, "sizes": None, "folds": self.folds,
+                "seed": self.seed, "target_precision": None, "target_recall": None, "command": cmd,
+                "versions": library_versions()}
+
+    def export_report(self, path: str | os.PathLike) -> Path | None:
+        """Write the review page of the current run to ``path``; returns it, or None (message).
+
+        The run is written as a fit folder (summary, split, pictures, rule files) into a temporary
+        folder and the page is made from it by the same call as ``pixelfit report``.
+        """
+        if self.running:
+            self.say("the ladder is still climbing; export the review page when it has finished", True)
+            return None
+        if not self.rungs or self.run_prep is None:
+            self.say("climb the ladder first: the review page is made from a finished run", True)
+            return None
+        prep = self.run_prep
+
+        def write() -> Path:
+            with tempfile.TemporaryDirectory(prefix="pixelfit-review-") as tmp:
+                rungs = [dataclasses.replace(r, rule_file=f"rules/{r.key}.json") for r in self.rungs]
+                for r in rungs:
+                    save_rung(Path(tmp) / r.rule_file, prep, r)
+                rec = next((r for r in rungs if self.recommended is not None and r.key == self.recommended.key), None)
+                write_fit_outputs(tmp, prep, rungs, rec, dict(self.run_settings or self._fit_settings()))
+                return write_report(tmp, path, dataset=prep.dataset)
+
+        written = self._write(path, write)
+        if written is not None:
+            self.say(f"wrote the review page to {written}")
+        return written
 
 
 def family_names() -> list[tuple[str, str]]:
