@@ -167,6 +167,7 @@ def cmd_fit(args) -> int:
     from pixelfit.evaluate import parse_spec
     from pixelfit.families import parse_families, parse_size_overrides, plan_rungs
     from pixelfit.ladder import effective_folds, prepare
+    from pixelfit.review import library_versions
     from pixelfit.runfolder import OccupiedFolderError, RunFolder
 
     if args.spec is None and (args.confidence is not None or args.budget_bytes is not None):
@@ -190,6 +191,8 @@ def cmd_fit(args) -> int:
     settings = {"families": families, "max_size": args.max_size, "sizes": args.sizes, "folds": args.folds,
                 "split": args.split, "seed": args.seed, "spec": args.spec,
                 "exhaustive": args.exhaustive, "scheduler": args.scheduler}
+    settings["command"] = ["pixelfit", *getattr(args, "argv", [])]
+    settings["versions"] = library_versions()
     try:  # the lock is held from before training until the run is in place
         folder.open()
     except OccupiedFolderError as exc:
@@ -246,6 +249,10 @@ def _fit_into(args, folder, ds, prep, rungs_plan, settings, spec) -> int:
     if args.rules and done_rungs:
         _write_rules(folder.staging, prep, done_rungs)
     summary = write_fit_outputs(folder.staging, prep, done_rungs, recommended, settings, cancelled, spec, answer)
+    if args.report:  # inside the run, so the page and the files it describes land together
+        from pixelfit.review import REPORT_NAME, write_report
+
+        write_report(folder.staging, dataset=ds)
     folder.commit()
     print(ladder_table(summary))
     leak_free = [(f"{r['family']}-{r['size']}", r["held_out_without_leaked"]) for r in summary["rungs"]
@@ -264,6 +271,8 @@ def _fit_into(args, folder, ds, prep, rungs_plan, settings, spec) -> int:
         print("no recommendation: it needs cross-validation (--folds of at least 2)")
     print(f"wrote {args.out}/summary.json, summary.csv, split.csv, check.csv, ladder.png, heatmaps/"
           f"{', rules/' if args.rules and done_rungs else ''}")
+    if args.report:
+        print(f"wrote {Path(args.out) / REPORT_NAME}")
     if folder.previous is not None:
         print(f"the earlier content of {args.out} is kept in {folder.previous}")
     if spec is not None:
@@ -490,6 +499,13 @@ def cmd_export(args) -> int:
     return EXIT_OK
 
 
+def cmd_report(args) -> int:
+    from pixelfit.review import write_report
+
+    print(f"wrote {write_report(args.run, args.out)}")
+    return EXIT_OK
+
+
 def cmd_demo(args) -> int:
     from pixelfit.demo import write_demo_set
 
@@ -556,7 +572,16 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--scheduler", metavar="ADDRESS", help="run the lut searches on a Dask cluster through this "
                    "scheduler (tcp://host:8786); needs pip install 'pixelfit[cluster]'")
     f.add_argument("--no-rules", dest="rules", action="store_false", help="do not write rules/<family>-<size>.json")
+    f.add_argument("--report", action="store_true", help="also write the review page, report.html, into --out")
     f.set_defaults(func=cmd_fit)
+
+    rp = sub.add_parser("report", help="write the review page of a fit folder",
+                        description="Write one self-contained HTML page (pictures, tables and files inline; no "
+                        "script, no network) from the output folder of `pixelfit fit`, for a reviewer who "
+                        "does not run pixelfit.")
+    rp.add_argument("run", metavar="RUN_DIR", help="output folder of `pixelfit fit`")
+    rp.add_argument("--out", metavar="FILE.html", help="where to write the page (default RUN_DIR/report.html)")
+    rp.set_defaults(func=cmd_report)
 
     sh = sub.add_parser("show", help="print a readable summary of a rule file",
                         description="Family and size, pixels read (as a grid), metrics with intervals, bound, "
@@ -630,9 +655,11 @@ def cmd_gui(args) -> int:
 
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
+    argv = sys.argv[1:] if argv is None else list(argv)
     args = parser.parse_args(argv)
     if args.command is None:  # plain `pixelfit` opens the desktop application on the demo set
         args = parser.parse_args(["gui"])
+    args.argv = argv  # recorded in summary.json so a run says how it was made
     try:
         return int(args.func(args))
     except PixelfitError as exc:

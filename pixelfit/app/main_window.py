@@ -134,7 +134,7 @@ class MainWindow(QtWidgets.QMainWindow):
                        self.gallery, self.check_view, self.inspector]
         self._unsubscribe = [s.subscribe("message", self._message), s.subscribe("run", self._update_actions),
                              s.subscribe("selection", self._update_actions),
-                             s.subscribe("prep", self._update_actions),
+                             s.subscribe("prep", self._update_actions), s.subscribe("rungs", self._update_actions),
                              s.subscribe("dataset", self._dataset_opened)]
         self._update_actions()
         self.resize(1680, 1000)
@@ -170,6 +170,8 @@ class MainWindow(QtWidgets.QMainWindow):
                                "Save the selected rung as a rule file", Pix.SP_DialogSaveButton)
         self.act_export = action("Export C…", self.choose_c_path, ["Ctrl+E"],
                                  "Write the selected rung as a C header with test vectors")
+        self.act_report = action("Export review report…", self.choose_report_path, ["Ctrl+Shift+E"],
+                                 "Write one self-contained HTML page of the run for a reviewer")
         self.act_quit = action("Quit", self.close, [Std.Quit])
         self.recent_menu = QtWidgets.QMenu("Recent sources", self)
         self.recent_menu.aboutToShow.connect(self._fill_recent)
@@ -182,6 +184,8 @@ class MainWindow(QtWidgets.QMainWindow):
         m.addAction(self.act_quit)
         m = bar.addMenu("&Ladder")
         m.addActions([self.act_climb, self.act_halt])
+        m.addSeparator()
+        m.addAction(self.act_report)
         m = bar.addMenu("&Rule")
         m.addActions([self.act_save, self.act_export])
         tb = self.addToolBar("main")
@@ -198,6 +202,7 @@ class MainWindow(QtWidgets.QMainWindow):
             a.setEnabled(not s.running)
         self.act_save.setEnabled(s.selected is not None)
         self.act_export.setEnabled(s.selected is not None)
+        self.act_report.setEnabled(not s.running and bool(s.rungs))
         title = APP_NAME if s.dataset is None else f"{Path(s.dataset.source).name} — {APP_NAME}"
         self.setWindowTitle(title)
 
@@ -346,6 +351,14 @@ class MainWindow(QtWidgets.QMainWindow):
         path, _ = QtWidgets.QFileDialog.getSaveFileName(self, f"Export {r.key} as C", start, "C headers (*.h)")
         if path:
             self.session.export_selected_c(path)
+
+    def choose_report_path(self) -> None:
+        if not self.session.rungs:
+            return
+        start = str(Path(self._last_dir()) / "report.html")
+        path, _ = QtWidgets.QFileDialog.getSaveFileName(self, "Export the review report", start, "HTML pages (*.html)")
+        if path:
+            self.session.export_report(path)
 
     # ---- closing ------------------------------------------------------------------------------
 

@@ -29,8 +29,10 @@ as ``pixelfit check``), so ``prep`` announces its new findings too.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import os
+import tempfile
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -43,7 +45,8 @@ from pixelfit.evaluate import Spec, apply_spec, detection_metrics
 from pixelfit.families import FAMILIES, FAMILY_ORDER, plan_rungs
 from pixelfit.firmware import export_c
 from pixelfit.ladder import Prepared, Rung, conclude, effective_folds, measure_integer, prepare, suspect_labels
-from pixelfit.outputs import error_curves
+from pixelfit.outputs import error_curves, write_fit_outputs
+from pixelfit.review import library_versions, write_report
 from pixelfit.rulefile import load_rule, save_rung
 
 EVENTS = ("dataset", "prep", "gallery", "settings", "run", "progress", "rungs", "selection", "threshold",
@@ -136,6 +139,7 @@ class Session:
         self.running = False
         self.progress_state: tuple[int, int, str] = (0, 0, "")
         self.run_prep: Prepared | None = None  # the prepared data the current rungs were trained on
+        self.run_settings: dict | None = None  # the settings of that run, as `pixelfit fit` records them
         self.planned = 0
         self.rungs: list[Rung] = []
         self.recommended: Rung | None = None
@@ -353,6 +357,7 @@ class Session:
         if prep.check is not None and prep.check.suspects is not None:
             prep.check.suspects = None  # the suspects of an earlier climb
             self._emit("check")
+        self.run_settings = self._fit_settings(prep)
         self.planned = len(plan)
         self.running = True
         self.progress_state = (0, 0, "starting")
@@ -405,6 +410,7 @@ class Session:
         self._thresholds = {}
         self.saved_paths = []
         self.run_prep = None
+        self.run_settings = None
         self._at_threshold = None
         if had:
             self._emit("rungs")
@@ -615,6 +621,64 @@ class Session:
         header, vectors = written
         self.say(f"exported {r.key} as C to {header} (test vectors {vectors})")
         return Path(header), Path(vectors)
+
+
+    # ---- the review page ----------------------------------------------------------------------
+
+    def _fit_settings(self, prep: Prepared) -> dict:
+        """The current ladder settings as ``pixelfit fit`` records them, with the equivalent command."""
+        b = prep.binarizer
+        cmd = ["pixelfit", "fit", prep.dataset.source, "--out", "RUN_DIR",
+               "--binarize", f"fixed:{b.threshold:g}" if b.method == "fixed" else b.method]
+        if b.invert:
+            cmd.append("--invert")
+        cmd += ["--positive", prep.positive]
+        if not prep.presplit:
+            cmd += ["--test-fraction", f"{self.test_fraction:g}"]
+        cmd += ["--seed", str(self.seed), "--families", ",".join(self.families)]
+        if self.max_size is not None:
+            cmd += ["--max-size", str(self.max_size)]
+        cmd += ["--folds", str(self.folds), "--split", prep.split_method if not prep.presplit else "group-duplicates"]
+        spec_text = None
+        if self.spec is not None:
+            spec_text = ",".join(f"{k}>={v:g}" for k, v in self.spec.targets.items())
+            cmd += ["--spec", spec_text, "--confidence", f"{self.spec.confidence:g}"]
+            if self.spec.budget_bytes is not None:
+                cmd += ["--budget-bytes", str(self.spec.budget_bytes)]
+        if self.scheduler:
+            cmd += ["--scheduler", self.scheduler]
+        return {"families": list(self.families), "max_size": self.max_size, "sizes": None, "folds": self.folds,
+                "split": prep.split_method, "seed": self.seed, "spec": spec_text, "exhaustive": False,
+                "scheduler": self.scheduler, "command": cmd, "versions": library_versions()}
+
+    def export_report(self, path: str | os.PathLike) -> Path | None:
+        """Write the review page of the current run to ``path``; returns it, or None (message).
+
+        The run is written as a fit folder (summary, split, pictures, rule files) into a temporary
+        folder and the page is made from it by the same call as ``pixelfit report``.
+        """
+        if self.running:
+            self.say("the ladder is still climbing; export the review page when it has finished", True)
+            return None
+        if not self.rungs or self.run_prep is None:
+            self.say("climb the ladder first: the review page is made from a finished run", True)
+            return None
+        prep = self.run_prep
+
+        def write() -> Path:
+            with tempfile.TemporaryDirectory(prefix="pixelfit-review-") as tmp:
+                rungs = [dataclasses.replace(r, rule_file=f"rules/{r.key}.json") for r in self.rungs]
+                for r in rungs:
+                    save_rung(Path(tmp) / f"rules/{r.key}.json", prep, r)
+                rec = next((r for r in rungs if self.recommended is not None and r.key == self.recommended.key), None)
+                write_fit_outputs(tmp, prep, rungs, rec, dict(self.run_settings or self._fit_settings(prep)), False,
+                                  self.spec, self.answer)
+                return write_report(tmp, path, dataset=prep.dataset)
+
+        written = self._write(path, write)
+        if written is not None:
+            self.say(f"wrote the review page to {written}")
+        return written
 
 
 def family_names() -> list[tuple[str, str]]:
