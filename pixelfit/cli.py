@@ -83,10 +83,12 @@ def cmd_fit(args) -> int:
     from pixelfit.ladder import LadderCancelled, conclude, prepare, run_ladder
     from pixelfit.models import parse_families, parse_size_overrides, plan_rungs
     from pixelfit.outputs import write_fit_outputs
+    from pixelfit.robustness import CheckSettings, augment
 
+    check_settings = CheckSettings(bias_variance=args.bias_variance, seed=args.seed)
     ds = load_dataset(resolve_dataset_path(args.path))
     binarizer = Binarizer.parse(args.binarize, invert=args.invert)
-    prep = prepare(ds, binarizer, args.positive, args.test_fraction, args.seed)
+    prep = augment(prepare(ds, binarizer, args.positive, args.test_fraction, args.seed), args.augment)
     families = parse_families(args.families)
     rungs_plan = plan_rungs(families, prep.n_pixels, args.max_size, parse_size_overrides(args.sizes))
     if not rungs_plan:
@@ -96,7 +98,8 @@ def cmd_fit(args) -> int:
     except OSError as exc:
         raise PixelfitError(f"--out {args.out}: cannot create the folder ({exc.strerror or exc})") from None
     settings = {"families": families, "max_size": args.max_size, "sizes": args.sizes, "folds": args.folds,
-                "seed": args.seed, "target_precision": args.target_precision, "target_recall": args.target_recall}
+                "seed": args.seed, "target_precision": args.target_precision, "target_recall": args.target_recall,
+                "augment": args.augment, "bias_variance": args.bias_variance}
     h, w = prep.shape
     print(f"{ds.source}: {len(ds)} patches of {h}x{w}; detecting {prep.positive!r} against {prep.negative!r}; "
           f"{len(prep.y_train)} train / {len(prep.y_test)} held-out"
@@ -117,15 +120,20 @@ def cmd_fit(args) -> int:
     finally:
         bar.close()
     recommended = conclude(done_rungs, prep.y_test) if done_rungs else None
+    checks = None
+    if done_rungs and not cancelled:
+        checks, cancelled = _run_checks(prep, done_rungs, recommended, check_settings)
     if args.rules and done_rungs:
-        _write_rules(args.out, prep, done_rungs)
-    summary = write_fit_outputs(args.out, prep, done_rungs, recommended, settings, cancelled)
+        _write_rules(args.out, prep, done_rungs, checks)
+    summary = write_fit_outputs(args.out, prep, done_rungs, recommended, settings, cancelled, checks)
     print(ladder_table(summary))
     if recommended is not None:
         print(f"recommended: {recommended.key} (smallest rung within one standard error of the best CV F1)")
     else:
         print("no recommendation: it needs cross-validation (--folds of at least 2)")
-    print(f"wrote {args.out}/summary.json, summary.csv, split.csv, ladder.png, heatmaps/"
+    pictures = "".join(f", {p}" for p in ("bias_variance.png", "learning_curve.png", "stress.png")
+                       if (Path(args.out) / p).exists())
+    print(f"wrote {args.out}/summary.json, summary.csv, split.csv, ladder.png{pictures}, heatmaps/"
           f"{', rules/' if args.rules and done_rungs else ''}")
     if cancelled:
         print(f"interrupted: {len(done_rungs)} of {len(rungs_plan)} rungs finished and were written", file=sys.stderr)
@@ -133,12 +141,34 @@ def cmd_fit(args) -> int:
     return EXIT_OK
 
 
-def _write_rules(out, prep, rungs) -> None:
+def _run_checks(prep, rungs, recommended, check_settings):
+    """The post-pass (bias and variance, learning curve, stress tests) with a progress bar.
+
+    Returns the checks finished (None when none did) and whether the user interrupted it.
+    """
+    from pixelfit.ladder import LadderCancelled
+    from pixelfit.robustness import run_checks
+
+    bar = _ProgressBar()
+    checks = None
+    try:
+        for pr in run_checks(prep, rungs, prep.dataset.images[prep.test_mask], recommended, check_settings):
+            if pr.checks is not None:
+                checks = pr.checks
+            bar.update(pr.done, pr.total, pr.message, pr.checks is not None)
+    except (KeyboardInterrupt, LadderCancelled):
+        return checks, True
+    finally:
+        bar.close()
+    return checks, False
+
+
+def _write_rules(out, prep, rungs, checks=None) -> None:
     from pixelfit.rulefile import save_rung
 
     for r in rungs:
         r.rule_file = f"rules/{r.key}.json"
-        save_rung(Path(out) / r.rule_file, prep, r)
+        save_rung(Path(out) / r.rule_file, prep, r, None if checks is None else checks.rung_entry(r.key))
 
 
 def cmd_show(args) -> int:
@@ -276,6 +306,8 @@ def cmd_demo(args) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
+    from pixelfit.conventions import AUGMENTS, DEFAULT_REPLICATES
+
     p = _Parser(prog="pixelfit", description="How few pixels does a detector need? Train a ladder of rules "
                 "of increasing size over small binary patches and measure each one.")
     p.add_argument("--version", action="version", version=f"pixelfit {__version__}")
@@ -289,7 +321,8 @@ def build_parser() -> argparse.ArgumentParser:
 
     f = sub.add_parser("fit", help="train the ladder and write the results",
                        description="Train the ladder of models by size on the binarized patches; write "
-                       "summary.json, summary.csv, split.csv, ladder.png and heatmaps/ into --out.")
+                       "summary.json, summary.csv, split.csv, ladder.png, heatmaps/ and the pictures of the checks "
+                       "(bias_variance.png, learning_curve.png, stress.png) into --out.")
     f.add_argument("path", help="folder of patches, .npz file, or a demo set name (e.g. bottle-caps)")
     f.add_argument("--out", required=True, help="output folder (created if missing)")
     f.add_argument("--binarize", default="otsu", metavar="METHOD",
@@ -307,6 +340,11 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--target-precision", type=float, metavar="P", help="find the threshold meeting this precision")
     f.add_argument("--target-recall", type=float, metavar="R", help="find the threshold meeting this recall")
     f.add_argument("--no-rules", dest="rules", action="store_false", help="do not write rules/<family>-<size>.json")
+    f.add_argument("--bias-variance", type=int, default=DEFAULT_REPLICATES, metavar="B",
+                   help=f"bootstrap replicates per rung for the bias-variance decomposition; 0 turns it off "
+                        f"({DEFAULT_REPLICATES})")
+    f.add_argument("--augment", choices=AUGMENTS, default="none",
+                   help="shift1: train on the training patches plus their eight one-pixel shifts (none)")
     f.set_defaults(func=cmd_fit)
 
     sh = sub.add_parser("show", help="print a readable summary of a rule file",

@@ -3,3 +3,9 @@
 BOUND_CONVENTION = ("one-sided upper bound on the true error rate at 95 % confidence (delta = 0.05), "
                     "with ln(1/delta) for the finite-class bound and ln(4/delta) inside Vapnik's bound")
 UNDEFINED_CONVENTION = "ratios with a zero denominator (e.g. precision with no predicted positive) are null"
+
+# Defaults the command line shows before it imports the core (pixelfit.robustness uses them).
+#: Bootstrap replicates per rung of the bias-variance decomposition.
+DEFAULT_REPLICATES = 25
+#: How ``--augment`` may extend the training part.
+AUGMENTS = ("none", "shift1")

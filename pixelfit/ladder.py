@@ -72,6 +72,7 @@ class Prepared:
     test_fraction: float | None
     seed: int
     presplit: bool
+    augment: str | None = None  # how the training rows were extended (``shift1``), None when not
 
     @property
     def shape(self) -> tuple[int, int]:

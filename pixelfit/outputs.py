@@ -1,5 +1,6 @@
 """The output folder of ``pixelfit fit``: summary.json (the contract), summary.csv, split.csv,
-heatmaps/ and ladder.png. Every file is written atomically."""
+heatmaps/, ladder.png and the pictures of the checks (bias_variance.png, learning_curve.png,
+stress.png). Every file is written atomically."""
 
 from __future__ import annotations
 
@@ -16,7 +17,8 @@ from pixelfit.conventions import BOUND_CONVENTION, UNDEFINED_CONVENTION
 from pixelfit.data import raw_fingerprint
 from pixelfit.ladder import Prepared, Rung
 from pixelfit.models import FAMILIES
-from pixelfit.plots import heatmap_png, ladder_png
+from pixelfit.plots import decomposition_png, heatmap_png, ladder_png, learning_curve_png, stress_png
+from pixelfit.robustness import Checks
 
 SUMMARY_FORMAT = "pixelfit-ladder-summary"
 SUMMARY_VERSION = 1
@@ -39,11 +41,13 @@ def dataset_summary(prep: Prepared) -> dict:
 
 def split_summary(prep: Prepared) -> dict:
     return {"test_fraction": prep.test_fraction, "seed": prep.seed, "presplit": prep.presplit,
-            "n_train": int(len(prep.y_train)), "n_test": int(len(prep.y_test)), "file": "split.csv"}
+            "n_train": int(len(prep.y_train)), "n_test": int(len(prep.y_test)), "file": "split.csv",
+            "augment": prep.augment or "none"}
 
 
 def build_summary(prep: Prepared, rungs: list[Rung], recommended: Rung | None, settings: dict,
-                  cancelled: bool = False) -> dict:
+                  cancelled: bool = False, checks: Checks | None = None) -> dict:
+    checks = checks or Checks()
     return {
         "format": SUMMARY_FORMAT,
         "version": SUMMARY_VERSION,
@@ -57,8 +61,9 @@ def build_summary(prep: Prepared, rungs: list[Rung], recommended: Rung | None, s
                         "recommendation": "smallest rung (fewest parameters) within one standard error "
                                           "of the best cross-validated F1; the held-out set is never used"},
         "cancelled": cancelled,
-        "rungs": [r.summary(prep.shape) for r in rungs],
+        "rungs": [{**r.summary(prep.shape), **checks.rung_entry(r.key)} for r in rungs],
         "recommended": None if recommended is None else {"family": recommended.family, "size": recommended.size},
+        "learning_curve": checks.learning_curve,
     }
 
 
@@ -114,7 +119,7 @@ def error_curves(rungs: list[Rung]) -> dict[str, dict[str, list[tuple[float, flo
 
 
 def write_fit_outputs(out: str | Path, prep: Prepared, rungs: list[Rung], recommended: Rung | None,
-                      settings: dict, cancelled: bool = False) -> dict:
+                      settings: dict, cancelled: bool = False, checks: Checks | None = None) -> dict:
     """Write every output of a ladder run into ``out``; returns the summary written."""
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -135,10 +140,31 @@ def write_fit_outputs(out: str | Path, prep: Prepared, rungs: list[Rung], recomm
         np.save(buf, values.astype(np.float64), allow_pickle=False)
         write_bytes(heat / f"data-{name}.npy", buf.getvalue())
         write_bytes(heat / f"data-{name}.png", heatmap_png(values))
-    summary = build_summary(prep, rungs, recommended, settings, cancelled)
+    summary = build_summary(prep, rungs, recommended, settings, cancelled, checks)
     write_json(out / "summary.json", summary)
     write_text(out / "summary.csv", summary_csv(summary))
     write_text(out / "split.csv", split_csv(prep))
     rec = None if recommended is None else (recommended.family, recommended.size)
     write_bytes(out / "ladder.png", ladder_png(error_curves(rungs), {f: FAMILIES[f].size_name for f in FAMILIES}, rec))
+    write_check_pictures(out, summary)
     return summary
+
+
+def write_check_pictures(out: Path, summary: dict) -> list[str]:
+    """bias_variance.png, learning_curve.png and stress.png, each where its check ran; the names written."""
+    written = []
+    rungs = summary["rungs"]
+    if any(r.get("bias_variance") for r in rungs):
+        curves: dict[str, list] = {}
+        for r in rungs:
+            curves.setdefault(r["family"], []).append((r["size"], r.get("bias_variance")))
+        write_bytes(out / "bias_variance.png", decomposition_png(curves, {f: FAMILIES[f].size_name for f in FAMILIES}))
+        written.append("bias_variance.png")
+    if summary.get("learning_curve"):
+        write_bytes(out / "learning_curve.png", learning_curve_png(summary["learning_curve"]))
+        written.append("learning_curve.png")
+    stress = {f"{r['family']}-{r['size']}": r["stress"] for r in rungs if r.get("stress")}
+    if stress:
+        write_bytes(out / "stress.png", stress_png(stress))
+        written.append("stress.png")
+    return written

@@ -112,15 +112,18 @@ def model_section(family: str, size: int, est, shape: tuple[int, int]) -> dict:
     return m
 
 
-def rule_document(prep, rung) -> dict:
+def rule_document(prep, rung, checks: dict | None = None) -> dict:
     """The rule-file document of one trained rung of a ladder.
 
     Parameters
     ----------
     prep : pixelfit.ladder.Prepared
     rung : pixelfit.ladder.Rung
+    checks : dict or None
+        The rung's ``bias_variance`` and ``stress`` figures (:meth:`pixelfit.robustness.Checks.rung_entry`),
+        written as top-level fields of the same names when given.
     """
-    return {
+    doc = {
         "format": RULE_FORMAT,
         "schema_version": RULE_VERSION,
         "created": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
@@ -139,15 +142,20 @@ def rule_document(prep, rung) -> dict:
             "fingerprint": prep.train_fingerprint,
             "fingerprint_of": "SHA-256 over the binarized training patches (bit-packed rows) and their labels",
             "source": prep.dataset.source, "n_train": int(len(prep.y_train)), "n_test": int(len(prep.y_test)),
-            "split": {"test_fraction": prep.test_fraction, "seed": prep.seed, "presplit": prep.presplit},
+            "split": {"test_fraction": prep.test_fraction, "seed": prep.seed, "presplit": prep.presplit,
+                      "augment": getattr(prep, "augment", None)},
         },
         "caution": CAUTION,
     }
+    if checks is not None:
+        doc["bias_variance"] = checks.get("bias_variance")
+        doc["stress"] = checks.get("stress")
+    return doc
 
 
-def save_rung(path: str | os.PathLike, prep, rung) -> Path:
-    """Write the rule file of one rung atomically; returns the path."""
-    doc = rule_document(prep, rung)
+def save_rung(path: str | os.PathLike, prep, rung, checks: dict | None = None) -> Path:
+    """Write the rule file of one rung atomically; returns the path (``checks``: see :func:`rule_document`)."""
+    doc = rule_document(prep, rung, checks)
     parse_rule(doc)  # never write a file we would refuse to read
     return write_json(path, doc)
 
