@@ -30,6 +30,10 @@ from sklearn.model_selection import StratifiedKFold
 from threadpoolctl import threadpool_limits
 
 from pixelfit.conventions import AUGMENTS, DEFAULT_REPLICATES
+
+__all__ = ["AUGMENTS", "DEFAULT_REPLICATES", "CheckProgress", "CheckSettings", "Checks", "augment", "run_checks",
+           "stress_rung", "stress_inputs", "most_important_pixel", "bootstrap_indices", "stratified_order",
+           "curve_rungs", "curve_splits", "curve_sizes", "FRACTIONS", "CURVE_FOLDS", "THRESHOLD_MOVES"]
 from pixelfit.data import Binarizer, grey_perturbations, stuck_pixel, with_shifts
 from pixelfit.errors import PixelfitError
 from pixelfit.evaluate import bias_variance_01, detection_metrics, last_segment_slope

@@ -19,6 +19,8 @@ Events (name: when)
 ``threshold``   the score threshold of the selected rung moved
 ``map``         the kind of per-pixel map shown changed
 ``target``      the target precision changed
+``checks``      results of the checks after the ladder arrived (bias and variance, learning curve,
+                stress tests), or were cleared
 ``message``     a line for the status area: ``(text, is_error)``
 """
 
@@ -38,10 +40,11 @@ from pixelfit.firmware import export_c
 from pixelfit.ladder import Prepared, Rung, conclude, prepare
 from pixelfit.models import FAMILIES, FAMILY_ORDER, plan_rungs
 from pixelfit.outputs import error_curves
+from pixelfit.robustness import DEFAULT_REPLICATES, CheckSettings, Checks
 from pixelfit.rulefile import load_rule, save_rung
 
 EVENTS = ("dataset", "prep", "gallery", "settings", "run", "progress", "rungs", "selection", "threshold",
-          "map", "target", "message")
+          "map", "target", "checks", "message")
 
 #: Per-pixel maps the inspector can show: rung maps first, then maps of the training data.
 MAP_KINDS = {"native": "model's own weights", "permutation": "permutation (held-out)",
@@ -59,6 +62,8 @@ class RunSpec:
     plan: list[tuple[str, int]]
     folds: int
     seed: int
+    checks: CheckSettings | None = None  # the post-pass after the ladder, None for none
+    grey_test: np.ndarray | None = None  # grey held-out patches, for the stress tests
 
 
 class Session:
@@ -76,6 +81,8 @@ class Session:
         self.families: list[str] = list(DEFAULT_FAMILIES)
         self.max_size: int | None = 8
         self.folds = 5
+        self.replicates = DEFAULT_REPLICATES  # bootstrap replicates per rung; 0: no bias-variance check
+        self.checks: Checks | None = None
         self.running = False
         self.progress_state: tuple[int, int, str] = (0, 0, "")
         self.run_prep: Prepared | None = None  # the prepared data the current rungs were trained on
@@ -241,7 +248,8 @@ class Session:
         self.progress_state = (0, 0, "starting")
         self._emit("run")
         self.say(f"climbing {len(plan)} rungs on {self.prep.binarizer.describe()} patches")
-        return RunSpec(self.prep, plan, self.folds, self.seed)
+        return RunSpec(self.prep, plan, self.folds, self.seed, CheckSettings(self.replicates, seed=self.seed),
+                       self.dataset.images[self.prep.test_mask])
 
     def report_progress(self, done: int, total: int, message: str) -> None:
         self.progress_state = (done, total, message)
@@ -258,6 +266,28 @@ class Session:
         self.rungs.append(rung)
         self.recommended = conclude(self.rungs, self.run_prep.y_test)
         self._emit("rungs")
+
+    def set_checks(self, checks: Checks) -> None:
+        """Results of the checks from the worker (everything finished so far)."""
+        self.checks = checks
+        self._emit("checks")
+
+    def rung_checks(self, key: str) -> dict:
+        """``bias_variance`` and ``stress`` of one rung (None each until measured)."""
+        return (self.checks or Checks()).rung_entry(key)
+
+    def decomposition_curves(self) -> dict[str, list[tuple[int, dict]]]:
+        """Per family, (size, bias-variance decomposition) of the rungs measured so far."""
+        out: dict[str, list[tuple[int, dict]]] = {}
+        for r in self.rungs:
+            bv = self.rung_checks(r.key)["bias_variance"]
+            if bv is not None and bv["loss"] is not None:
+                out.setdefault(r.family, []).append((r.size, bv))
+        return out
+
+    @property
+    def learning_curve(self) -> dict | None:
+        return None if self.checks is None else self.checks.learning_curve
 
     def end_run(self, outcome: str, detail: str = "") -> None:
         """``outcome`` is 'finished', 'cancelled' or 'failed' (``detail`` says why)."""
@@ -281,6 +311,9 @@ class Session:
         self.saved_paths = []
         self.run_prep = None
         self._at_threshold = None
+        if self.checks is not None:
+            self.checks = None
+            self._emit("checks")
         if had:
             self._emit("rungs")
         if self.selected is not None:
@@ -400,7 +433,8 @@ class Session:
         if r is None:
             self.say("select a rung to save first", True)
             return None
-        written = self._write(path, lambda: save_rung(path, self.run_prep, r))
+        written = self._write(path, lambda: save_rung(path, self.run_prep, r,
+                                                      self.rung_checks(r.key) if self.checks else None))
         if written is None:
             return None
         out = Path(written)
