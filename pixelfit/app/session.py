@@ -40,7 +40,7 @@ from pixelfit.firmware import export_c
 from pixelfit.ladder import Prepared, Rung, conclude, prepare
 from pixelfit.models import FAMILIES, FAMILY_ORDER, plan_rungs
 from pixelfit.outputs import error_curves
-from pixelfit.robustness import DEFAULT_REPLICATES, CheckSettings, Checks
+from pixelfit.robustness import DEFAULT_REPLICATES, Checks, CheckSettings
 from pixelfit.rulefile import load_rule, save_rung
 
 EVENTS = ("dataset", "prep", "gallery", "settings", "run", "progress", "rungs", "selection", "threshold",

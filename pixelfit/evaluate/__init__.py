@@ -15,14 +15,6 @@ from pixelfit.evaluate._compare import (
     threshold_for_target,
 )
 from pixelfit.evaluate._importance import mean_difference_map, mutual_information_map, permutation_map
-from pixelfit.evaluate._variance import (
-    VERDICT_FLAT,
-    VERDICT_HELPS,
-    VERDICT_UNCLEAR,
-    bias_variance_01,
-    last_segment_slope,
-    slope_verdict,
-)
 from pixelfit.evaluate._metrics import (
     clopper_pearson_interval,
     confusion,
@@ -30,6 +22,14 @@ from pixelfit.evaluate._metrics import (
     error_rate,
     metrics_from_counts,
     wilson_interval,
+)
+from pixelfit.evaluate._variance import (
+    VERDICT_FLAT,
+    VERDICT_HELPS,
+    VERDICT_UNCLEAR,
+    bias_variance_01,
+    last_segment_slope,
+    slope_verdict,
 )
 
 # Class sizes are counted in pixelfit.models; they are re-exported here beside the bounds that use them.
