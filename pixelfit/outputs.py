@@ -151,7 +151,11 @@ def write_fit_outputs(out: str | Path, prep: Prepared, rungs: list[Rung], recomm
 
 
 def write_check_pictures(out: Path, summary: dict) -> list[str]:
-    """bias_variance.png, learning_curve.png and stress.png, each where its check ran; the names written."""
+    """bias_variance.png, learning_curve.png and stress.png, each where its check ran; the names written.
+
+    A picture of a check that did not run is removed, so that no earlier run's picture stays beside
+    this run's summary.
+    """
     written = []
     rungs = summary["rungs"]
     if any(r.get("bias_variance") for r in rungs):
@@ -167,4 +171,6 @@ def write_check_pictures(out: Path, summary: dict) -> list[str]:
     if stress:
         write_bytes(out / "stress.png", stress_png(stress))
         written.append("stress.png")
+    for name in {"bias_variance.png", "learning_curve.png", "stress.png"} - set(written):
+        (out / name).unlink(missing_ok=True)
     return written

@@ -278,10 +278,13 @@ def test_fit_writes_the_contract(tmp_path, class_folder):
 
 def test_fit_with_checks_off_and_augment(tmp_path, class_folder, capsys):
     out = tmp_path / "out"
+    out.mkdir()
+    (out / "bias_variance.png").write_bytes(b"from an earlier run")
     assert main(["fit", str(class_folder), "--out", str(out), "--families", "constant,tree", "--max-size", "2",
                  "--bias-variance", "0", "--augment", "shift1", "--folds", "2"]) == 0
     s = json.loads((out / "summary.json").read_text())
     assert all(r["bias_variance"] is None for r in s["rungs"]) and not (out / "bias_variance.png").exists()
+    assert (out / "stress.png").exists()
     assert s["settings"]["augment"] == "shift1" and s["split"]["augment"] == "shift1"
     assert s["split"]["n_train"] == 9 * sum(1 for line in (out / "split.csv").read_text().splitlines()[1:]
                                             if line.endswith(",train"))
