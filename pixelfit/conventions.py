@@ -6,6 +6,6 @@ UNDEFINED_CONVENTION = "ratios with a zero denominator (e.g. precision with no p
 
 # Defaults the command line shows before it imports the core (pixelfit.robustness uses them).
 #: Bootstrap replicates per rung of the bias-variance decomposition.
-DEFAULT_REPLICATES = 9
+DEFAULT_REPLICATES = 5
 #: How ``--augment`` may extend the training part.
 AUGMENTS = ("none", "shift1")
