@@ -8,8 +8,8 @@ import numpy as np
 VERDICT_HELPS = "more data would likely help"
 VERDICT_FLAT = "flat: more data alone will not help; a larger rung might"
 VERDICT_UNCLEAR = "unclear"
-#: A change of error over the last segment smaller than this is "flat" (common practice: a tenth
-#: of a percentage point per tenth of the data is below what a ladder's users act on).
+#: A change of error over the last segment (70 to 100 % of the data) smaller than one percentage
+#: point is "flat" (common practice: a smaller gain is below what a ladder's users act on).
 FLAT_TOLERANCE = 0.01
 
 
