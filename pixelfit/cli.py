@@ -168,12 +168,14 @@ def cmd_fit(args) -> int:
     from pixelfit.families import parse_families, parse_size_overrides, plan_rungs
     from pixelfit.ladder import effective_folds, prepare
     from pixelfit.review import library_versions
+    from pixelfit.robustness import CheckSettings, augment
     from pixelfit.runfolder import OccupiedFolderError, RunFolder
 
     if args.spec is None and (args.confidence is not None or args.budget_bytes is not None):
         raise PixelfitError("--confidence and --budget-bytes go with --spec, e.g. --spec \"precision>=0.90,recall>=0.85\"")
     spec = None if args.spec is None else parse_spec(args.spec, 0.95 if args.confidence is None else args.confidence,
                                                       args.budget_bytes)
+    check_settings = CheckSettings(bias_variance=args.bias_variance, seed=args.seed)
     source = resolve_dataset_path(args.path)
     folder = RunFolder(args.out, [source], overwrite=args.overwrite)
     try:
@@ -182,7 +184,7 @@ def cmd_fit(args) -> int:
         raise PixelfitError(f"{exc} (--overwrite)", field=exc.field) from None
     ds = load_dataset(source)
     binarizer = Binarizer.parse(args.binarize, invert=args.invert)
-    prep = prepare(ds, binarizer, args.positive, args.test_fraction, args.seed, args.split)
+    prep = augment(prepare(ds, binarizer, args.positive, args.test_fraction, args.seed, args.split), args.augment)
     families = parse_families(args.families)
     rungs_plan = plan_rungs(families, prep.n_pixels, args.max_size, parse_size_overrides(args.sizes))
     effective_folds(prep.y_train, args.folds)  # refuse bad folds before anything is printed or locked
@@ -190,7 +192,8 @@ def cmd_fit(args) -> int:
         raise PixelfitError("no rung to train: --max-size and --sizes leave every family empty")
     settings = {"families": families, "max_size": args.max_size, "sizes": args.sizes, "folds": args.folds,
                 "split": args.split, "seed": args.seed, "spec": args.spec,
-                "exhaustive": args.exhaustive, "scheduler": args.scheduler}
+                "exhaustive": args.exhaustive, "scheduler": args.scheduler,
+                "augment": args.augment, "bias_variance": args.bias_variance}
     settings["command"] = ["pixelfit", *getattr(args, "argv", [])]
     settings["versions"] = library_versions()
     try:  # the lock is held from before training until the run is in place
@@ -202,12 +205,12 @@ def cmd_fit(args) -> int:
     try:
         for note in folder.notes:
             print(f"note: {note}", file=sys.stderr)
-        return _fit_into(args, folder, ds, prep, rungs_plan, settings, spec)
+        return _fit_into(args, folder, ds, prep, rungs_plan, settings, spec, check_settings)
     finally:
         folder.close()
 
 
-def _fit_into(args, folder, ds, prep, rungs_plan, settings, spec) -> int:
+def _fit_into(args, folder, ds, prep, rungs_plan, settings, spec, check_settings) -> int:
     from pixelfit.evaluate import apply_spec
     from pixelfit.ladder import LadderCancelled, conclude, measure_integer, run_ladder, suspect_labels
     from pixelfit.outputs import write_fit_outputs
@@ -246,9 +249,13 @@ def _fit_into(args, folder, ds, prep, rungs_plan, settings, spec) -> int:
     answer = apply_spec(done_rungs, prep.y_train, prep.y_test, spec)
     for r in done_rungs:  # what ships is the integer predictor at the threshold the spec chose
         measure_integer(r, prep.X_test, prep.y_test)
+    checks = None
+    if done_rungs and not cancelled:
+        checks, cancelled = _run_checks(prep, done_rungs, recommended, check_settings)
     if args.rules and done_rungs:
-        _write_rules(folder.staging, prep, done_rungs)
-    summary = write_fit_outputs(folder.staging, prep, done_rungs, recommended, settings, cancelled, spec, answer)
+        _write_rules(folder.staging, prep, done_rungs, checks)
+    summary = write_fit_outputs(folder.staging, prep, done_rungs, recommended, settings, cancelled, spec, answer,
+                                checks)
     if args.report:  # inside the run, so the page and the files it describes land together
         from pixelfit.review import REPORT_NAME, write_report
 
@@ -269,7 +276,9 @@ def _fit_into(args, folder, ds, prep, rungs_plan, settings, spec) -> int:
         print(f"recommended: {recommended.key} (smallest rung within one standard error of the best CV F1)")
     else:
         print("no recommendation: it needs cross-validation (--folds of at least 2)")
-    print(f"wrote {args.out}/summary.json, summary.csv, split.csv, check.csv, ladder.png, heatmaps/"
+    pictures = "".join(f", {p}" for p in ("bias_variance.png", "learning_curve.png", "stress.png")
+                       if (Path(args.out) / p).exists())
+    print(f"wrote {args.out}/summary.json, summary.csv, split.csv, check.csv, ladder.png{pictures}, heatmaps/"
           f"{', rules/' if args.rules and done_rungs else ''}")
     if args.report:
         print(f"wrote {Path(args.out) / REPORT_NAME}")
@@ -284,12 +293,34 @@ def _fit_into(args, folder, ds, prep, rungs_plan, settings, spec) -> int:
     return EXIT_OK
 
 
-def _write_rules(out, prep, rungs) -> None:
+def _run_checks(prep, rungs, recommended, check_settings):
+    """The post-pass (bias and variance, learning curve, stress tests) with a progress bar.
+
+    Returns the checks finished (None when none did) and whether the user interrupted it.
+    """
+    from pixelfit.ladder import LadderCancelled
+    from pixelfit.robustness import run_checks
+
+    bar = _ProgressBar()
+    checks = None
+    try:
+        for pr in run_checks(prep, rungs, prep.dataset.images[prep.test_mask], recommended, check_settings):
+            if pr.checks is not None:
+                checks = pr.checks
+            bar.update(pr.done, pr.total, pr.message, pr.checks is not None)
+    except (KeyboardInterrupt, LadderCancelled):
+        return checks, True
+    finally:
+        bar.close()
+    return checks, False
+
+
+def _write_rules(out, prep, rungs, checks=None) -> None:
     from pixelfit.rulefile import save_rung
 
     for r in rungs:
         r.rule_file = f"rules/{r.key}.json"
-        save_rung(Path(out) / r.rule_file, prep, r)
+        save_rung(Path(out) / r.rule_file, prep, r, checks=None if checks is None else checks.rung_entry(r.key))
 
 
 def cmd_show(args) -> int:
@@ -515,6 +546,8 @@ def cmd_demo(args) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
+    from pixelfit.conventions import AUGMENTS, DEFAULT_REPLICATES
+
     p = _Parser(prog="pixelfit", description="How few pixels does a detector need? Train a ladder of rules "
                 "of increasing size over small binary patches and measure each one.")
     p.add_argument("--version", action="version", version=f"pixelfit {__version__}")
@@ -541,7 +574,8 @@ def build_parser() -> argparse.ArgumentParser:
 
     f = sub.add_parser("fit", help="train the ladder and write the results",
                        description="Train the ladder of models by size on the binarized patches; write "
-                       "summary.json, summary.csv, split.csv, ladder.png and heatmaps/ into --out.")
+                       "summary.json, summary.csv, split.csv, ladder.png, heatmaps/ and the pictures of the checks "
+                       "(bias_variance.png, learning_curve.png, stress.png) into --out.")
     f.add_argument("path", help="folder of patches, .npz file, or a demo set name (e.g. bottle-caps)")
     f.add_argument("--out", required=True, metavar="DIR",
                    help="output folder (created if missing). A run is written beside it and swapped in whole "
@@ -573,6 +607,11 @@ def build_parser() -> argparse.ArgumentParser:
                    "scheduler (tcp://host:8786); needs pip install 'pixelfit[cluster]'")
     f.add_argument("--no-rules", dest="rules", action="store_false", help="do not write rules/<family>-<size>.json")
     f.add_argument("--report", action="store_true", help="also write the review page, report.html, into --out")
+    f.add_argument("--bias-variance", type=int, default=DEFAULT_REPLICATES, metavar="B",
+                   help=f"bootstrap replicates per rung for the bias-variance decomposition; 0 turns it off "
+                        f"({DEFAULT_REPLICATES})")
+    f.add_argument("--augment", choices=AUGMENTS, default="none",
+                   help="shift1: train on the training patches plus their eight one-pixel shifts (none)")
     f.set_defaults(func=cmd_fit)
 
     rp = sub.add_parser("report", help="write the review page of a fit folder",

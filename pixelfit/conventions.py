@@ -6,3 +6,9 @@ BOUND_CONVENTION = ("one-sided upper bound on the true error rate at 95 % confid
                     "training patches; each rung's bound holds for that rung alone, as if it were the only "
                     "rung tried: it does not account for the recommendation choosing among the rungs")
 UNDEFINED_CONVENTION = "ratios with a zero denominator (e.g. precision with no predicted positive) are null"
+
+# Defaults the command line shows before it imports the core (pixelfit.robustness uses them).
+#: Bootstrap replicates per rung of the bias-variance decomposition.
+DEFAULT_REPLICATES = 5
+#: How ``--augment`` may extend the training part.
+AUGMENTS = ("none", "shift1")

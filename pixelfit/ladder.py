@@ -96,6 +96,7 @@ class Prepared:
             return None
         g = self.groups[~self.test_mask]
         return g if len(np.unique(g)) < len(g) else None
+    augment: str | None = None  # how the training rows were extended (``shift1``), None when not
 
     @property
     def shape(self) -> tuple[int, int]:

@@ -34,7 +34,8 @@ import numpy as np
 
 from pixelfit import errors
 from pixelfit.data import Dataset
-from pixelfit.ladder import CancelFn, LadderCancelled, Prepared, Progress, run_ladder
+from pixelfit.ladder import CancelFn, LadderCancelled, Prepared, Progress, conclude, run_ladder
+from pixelfit.robustness import CheckSettings, run_checks
 
 #: How often the caller checks its cancel callback and the trainer's liveness while it waits (s).
 POLL_S = 0.05
@@ -94,7 +95,8 @@ def slim(prep: Prepared) -> Prepared:
 
 
 def _serve(conn: multiprocessing.connection.Connection, prep: Prepared, rungs: list[tuple[str, int]], folds: int,
-           seed: int, scheduler: str | None = None) -> None:
+           seed: int, scheduler: str | None = None, checks: CheckSettings | None = None,
+           grey_test: np.ndarray | None = None) -> None:
     """The trainer's main: run the ladder, send each record, stop when asked. Runs in the child."""
     asked = [False]
 
@@ -108,8 +110,16 @@ def _serve(conn: multiprocessing.connection.Connection, prep: Prepared, rungs: l
 
     try:
         try:
+            finished = []
             for pr in run_ladder(prep, rungs, folds, seed, cancel, scheduler=scheduler):
                 conn.send(("progress", pr))
+                if pr.rung is not None:
+                    finished.append(pr.rung)
+            if checks is not None and finished:
+                # The post-pass in the same worker; conclude() here only picks the curve's center.
+                recommended = conclude(finished, prep.y_test)
+                for pr in run_checks(prep, finished, grey_test, recommended, checks, cancel):
+                    conn.send(("progress", pr))
         except LadderCancelled:
             conn.send(("cancelled", None))
         except errors.PixelfitError as exc:
@@ -134,8 +144,13 @@ def _refusal(name: str, message: str) -> errors.PixelfitError:
 
 
 def run_ladder_in_process(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, seed: int = 0,
-                          cancel: CancelFn | None = None, scheduler: str | None = None) -> Iterator[Progress]:
+                          cancel: CancelFn | None = None, scheduler: str | None = None,
+                          checks: CheckSettings | None = None, grey_test: np.ndarray | None = None) -> Iterator[Progress]:
     """:func:`pixelfit.ladder.run_ladder` in a child process; yields the same :class:`Progress` records.
+
+    With ``checks``, the child then runs :func:`pixelfit.robustness.run_checks` on the finished rungs
+    (``grey_test``: the grey held-out patches, for the stress tests) and relays its
+    :class:`~pixelfit.robustness.CheckProgress` records too, with the same cancel.
 
     Raises :class:`LadderCancelled` once the child has stopped after ``cancel()`` returned True (or
     :data:`STOP_GRACE_S` later, when the child is terminated because it did not stop), the
@@ -146,7 +161,7 @@ def run_ladder_in_process(prep: Prepared, rungs: list[tuple[str, int]], folds: i
     ctx = _get_context()
     here, there = ctx.Pipe(duplex=True)
     proc = ctx.Process(target=_serve, name="pixelfit-trainer", daemon=True,
-                       args=(there, slim(prep), list(rungs), folds, seed, scheduler))
+                       args=(there, slim(prep), list(rungs), folds, seed, scheduler, checks, grey_test))
     try:
         proc.start()
     except OSError as exc:  # the new process died before it took its work

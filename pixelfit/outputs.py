@@ -1,5 +1,6 @@
 """The output folder of ``pixelfit fit``: summary.json (the contract), summary.csv, split.csv,
-heatmaps/ and ladder.png. Every file is written atomically."""
+heatmaps/, ladder.png and the pictures of the checks (bias_variance.png, learning_curve.png,
+stress.png). Every file is written atomically."""
 
 from __future__ import annotations
 
@@ -17,7 +18,8 @@ from pixelfit.data import check_csv_rows, raw_fingerprint
 from pixelfit.evaluate import Spec
 from pixelfit.families import FAMILIES
 from pixelfit.ladder import Prepared, Rung, leak_free_test
-from pixelfit.plots import heatmap_png, ladder_png
+from pixelfit.plots import decomposition_png, heatmap_png, ladder_png, learning_curve_png, stress_png
+from pixelfit.robustness import Checks
 from pixelfit.runfolder import SUMMARY_FORMAT
 from pixelfit.text import FIELDS
 
@@ -43,7 +45,8 @@ def dataset_summary(prep: Prepared) -> dict:
 def split_summary(prep: Prepared) -> dict:
     return {"method": prep.split_method, "test_fraction": prep.test_fraction, "seed": prep.seed,
             "presplit": prep.presplit,
-            "n_train": int(len(prep.y_train)), "n_test": int(len(prep.y_test)), "file": "split.csv"}
+            "n_train": int(len(prep.y_train)), "n_test": int(len(prep.y_test)), "file": "split.csv",
+            "augment": prep.augment or "none"}
 
 
 SPEC_CONVENTION = ("each rung's threshold is chosen on its out-of-fold CV scores (training scores when CV is off): "
@@ -54,7 +57,9 @@ SPEC_CONVENTION = ("each rung's threshold is chosen on its out-of-fold CV scores
 
 
 def build_summary(prep: Prepared, rungs: list[Rung], recommended: Rung | None, settings: dict,
-                  cancelled: bool = False, spec: Spec | None = None, answer: dict | None = None) -> dict:
+                  cancelled: bool = False, spec: Spec | None = None, answer: dict | None = None,
+                  checks: Checks | None = None) -> dict:
+    checks = checks or Checks()
     return {
         "format": SUMMARY_FORMAT,
         "version": SUMMARY_VERSION,
@@ -72,8 +77,10 @@ def build_summary(prep: Prepared, rungs: list[Rung], recommended: Rung | None, s
         "spec": None if spec is None else spec.to_dict(),
         "answer": answer,
         "cancelled": cancelled,
-        "rungs": [{**r.summary(prep.shape), "held_out_without_leaked": leak_free_test(prep, r)} for r in rungs],
+        "rungs": [{**r.summary(prep.shape), "held_out_without_leaked": leak_free_test(prep, r), **checks.rung_entry(r.key)}
+                  for r in rungs],
         "recommended": None if recommended is None else {"family": recommended.family, "size": recommended.size},
+        "learning_curve": checks.learning_curve,
     }
 
 
@@ -162,7 +169,7 @@ def error_curves(rungs: list[Rung]) -> dict[str, dict[str, list[tuple[float, flo
 
 def write_fit_outputs(out: str | Path, prep: Prepared, rungs: list[Rung], recommended: Rung | None,
                       settings: dict, cancelled: bool = False, spec: Spec | None = None,
-                      answer: dict | None = None) -> dict:
+                      answer: dict | None = None, checks: Checks | None = None) -> dict:
     """Write every output of a ladder run into ``out``; returns the summary written."""
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -183,11 +190,38 @@ def write_fit_outputs(out: str | Path, prep: Prepared, rungs: list[Rung], recomm
         np.save(buf, values.astype(np.float64), allow_pickle=False)
         write_bytes(heat / f"data-{name}.npy", buf.getvalue())
         write_bytes(heat / f"data-{name}.png", heatmap_png(values))
-    summary = build_summary(prep, rungs, recommended, settings, cancelled, spec, answer)
+    summary = build_summary(prep, rungs, recommended, settings, cancelled, spec, answer, checks)
     write_json(out / "summary.json", summary)
     write_text(out / "summary.csv", summary_csv(summary))
     write_text(out / "split.csv", split_csv(prep))
     write_text(out / "check.csv", check_csv(prep))
     rec = None if recommended is None else (recommended.family, recommended.size)
     write_bytes(out / "ladder.png", ladder_png(error_curves(rungs), {f: FAMILIES[f].size_name for f in FAMILIES}, rec))
+    write_check_pictures(out, summary)
     return summary
+
+
+def write_check_pictures(out: Path, summary: dict) -> list[str]:
+    """bias_variance.png, learning_curve.png and stress.png, each where its check ran; the names written.
+
+    A picture of a check that did not run is removed, so that no earlier run's picture stays beside
+    this run's summary.
+    """
+    written = []
+    rungs = summary["rungs"]
+    if any(r.get("bias_variance") for r in rungs):
+        curves: dict[str, list] = {}
+        for r in rungs:
+            curves.setdefault(r["family"], []).append((r["size"], r.get("bias_variance")))
+        write_bytes(out / "bias_variance.png", decomposition_png(curves, {f: FAMILIES[f].size_name for f in FAMILIES}))
+        written.append("bias_variance.png")
+    if summary.get("learning_curve"):
+        write_bytes(out / "learning_curve.png", learning_curve_png(summary["learning_curve"]))
+        written.append("learning_curve.png")
+    stress = {f"{r['family']}-{r['size']}": r["stress"] for r in rungs if r.get("stress")}
+    if stress:
+        write_bytes(out / "stress.png", stress_png(stress))
+        written.append("stress.png")
+    for name in {"bias_variance.png", "learning_curve.png", "stress.png"} - set(written):
+        (out / name).unlink(missing_ok=True)
+    return written

@@ -109,3 +109,196 @@ def ladder_png(curves: dict[str, dict[str, list[tuple[float, float | None]]]], s
     buf = io.BytesIO()
     im.save(buf, format="PNG")
     return buf.getvalue()
+
+
+#: Line colours of the bias-variance decomposition.
+DECOMPOSITION_RGB = {"loss": (60, 60, 60), "bias": (46, 92, 160), "variance": (214, 120, 16)}
+#: Line colours of the learning curves.
+LEARNING_RGB = {"cv": (46, 92, 160), "test": (214, 120, 16)}
+
+
+def _png(im: Image.Image) -> bytes:
+    buf = io.BytesIO()
+    im.save(buf, format="PNG")
+    return buf.getvalue()
+
+
+def _nice_top(values: list[float]) -> float:
+    """The top of a 0-based axis: the largest value rounded up to a tenth (at least 0.1)."""
+    top = max([v for v in values if v is not None and np.isfinite(v)], default=0.0)
+    return max(0.1, float(np.ceil(top * 10 - 1e-9) / 10))
+
+
+def _legend(d: ImageDraw.ImageDraw, font, items: list[tuple[str, tuple[int, int, int]]], y: int = 14) -> None:
+    x0 = 8
+    for label, rgb in items:
+        d.line([(x0, y), (x0 + 18, y)], fill=rgb, width=3)
+        d.text((x0 + 22, y - 6), label, fill=(0, 0, 0), font=font)
+        x0 += 32 + int(d.textlength(label, font=font))
+
+
+def decomposition_png(curves: dict[str, list[tuple[float, dict | None]]], size_names: dict[str, str]) -> bytes:
+    """PNG bytes of the measured bias and variance: one panel per family, against size.
+
+    ``curves[family]`` is a list of (size, decomposition) with the keys of
+    :func:`pixelfit.evaluate.bias_variance_01`; a None decomposition is left out.
+    """
+    families = list(curves)
+    cols = min(4, max(1, len(families)))
+    rows = max(1, -(-len(families) // cols))
+    pw, ph, pad = 260, 200, 36
+    im = Image.new("RGB", (cols * pw, rows * ph + 28), (255, 255, 255))
+    d = ImageDraw.Draw(im)
+    font = ImageFont.load_default()
+    _legend(d, font, [("held-out loss", DECOMPOSITION_RGB["loss"]), ("bias", DECOMPOSITION_RGB["bias"]),
+                      ("variance", DECOMPOSITION_RGB["variance"])])
+    top_v = _nice_top([bv[k] for pts in curves.values() for _, bv in pts if bv for k in DECOMPOSITION_RGB])
+    for i, fam in enumerate(families):
+        ox, oy = (i % cols) * pw, 28 + (i // cols) * ph
+        left, top, right, bottom = ox + pad, oy + 18, ox + pw - 10, oy + ph - 28
+        d.text((ox + pad, oy + 2), fam, fill=(0, 0, 0), font=font)
+        d.rectangle([left, top, right, bottom], outline=(180, 180, 180))
+        pts = [(s, bv) for s, bv in curves[fam] if bv is not None and bv.get("loss") is not None]
+        sizes = sorted({s for s, _ in curves[fam]})
+        if not sizes:
+            continue
+        log_x = len(sizes) > 2 and sizes[0] > 0 and sizes[-1] / sizes[0] > 8
+        xs = np.log2(sizes) if log_x else np.asarray(sizes, float)
+        px = _x_axis(left + 6, right - 6, float(xs.min()), float(xs.max()), log_x)
+        unit = _y_axis(top, bottom)
+
+        def py(e: float, unit=unit) -> float:
+            return unit(e / top_v)
+
+        for k in range(5):
+            e = top_v * k / 4
+            d.line([(left, py(e)), (right, py(e))], fill=(235, 235, 235))
+            d.text((ox + 4, py(e) - 6), f"{e:.3g}", fill=(90, 90, 90), font=font)
+        for s in sizes:
+            d.text((px(s) - 6, bottom + 4), str(s), fill=(90, 90, 90), font=font)
+        d.text((right - 70, bottom + 14), size_names.get(fam, "size"), fill=(90, 90, 90), font=font)
+        for kind, rgb in DECOMPOSITION_RGB.items():
+            xy = [(px(s), py(bv[kind])) for s, bv in pts]
+            if len(xy) > 1:
+                d.line(xy, fill=rgb, width=2)
+            for x, y in xy:
+                d.ellipse([x - 2, y - 2, x + 2, y + 2], fill=rgb)
+        if not pts:
+            d.text((left + 8, top + 8), "not measured", fill=(120, 120, 120), font=font)
+    return _png(im)
+
+
+def learning_curve_png(curve: dict) -> bytes:
+    """PNG bytes of the learning curves: one panel per rung, error against training fraction.
+
+    ``curve`` is the ``learning_curve`` entry of summary.json. The CV error is drawn with bars of
+    one standard deviation over the repeats; each panel's verdict is written under it.
+    """
+    keys = list(curve.get("rungs") or [])
+    pw, ph, pad = 300, 230, 36
+    im = Image.new("RGB", (max(1, len(keys)) * pw, ph + 28), (255, 255, 255))
+    d = ImageDraw.Draw(im)
+    font = ImageFont.load_default()
+    _legend(d, font, [("CV error (± 1 SD)", LEARNING_RGB["cv"]), ("held-out error", LEARNING_RGB["test"])])
+    points = curve.get("points") or []
+    top_v = _nice_top([(p["cv_error"] or 0) + (p["cv_error_std"] or 0) for p in points]
+                      + [p["test_error"] for p in points])
+    for i, key in enumerate(keys):
+        ox, oy = i * pw, 28
+        left, top, right, bottom = ox + pad, oy + 18, ox + pw - 10, oy + ph - 56
+        d.text((ox + pad, oy + 2), key, fill=(0, 0, 0), font=font)
+        d.rectangle([left, top, right, bottom], outline=(180, 180, 180))
+        px = _x_axis(left + 6, right - 6, 0.0, 1.0, False)
+        unit = _y_axis(top, bottom)
+
+        def py(e: float, unit=unit) -> float:
+            return unit(e / top_v)
+
+        for k in range(5):
+            e = top_v * k / 4
+            d.line([(left, py(e)), (right, py(e))], fill=(235, 235, 235))
+            d.text((ox + 4, py(e) - 6), f"{e:.3g}", fill=(90, 90, 90), font=font)
+        mine = [p for p in points if p["rung"] == key]
+        for p in mine:
+            d.text((px(p["fraction"]) - 8, bottom + 4), f"{p['fraction']:.0%}", fill=(90, 90, 90), font=font)
+        d.text((right - 120, bottom + 16), "share of training part", fill=(90, 90, 90), font=font)
+        for kind, rgb in LEARNING_RGB.items():
+            xy = [(px(p["fraction"]), py(p[f"{kind}_error"])) for p in mine if p[f"{kind}_error"] is not None]
+            if len(xy) > 1:
+                d.line(xy, fill=rgb, width=2)
+            for x, y in xy:
+                d.ellipse([x - 2, y - 2, x + 2, y + 2], fill=rgb)
+        for p in mine:
+            if p["cv_error"] is not None and p["cv_error_std"] is not None:
+                x = px(p["fraction"])
+                lo, hi = py(max(0.0, p["cv_error"] - p["cv_error_std"])), py(p["cv_error"] + p["cv_error_std"])
+                d.line([(x, lo), (x, hi)], fill=LEARNING_RGB["cv"], width=1)
+                d.line([(x - 3, lo), (x + 3, lo)], fill=LEARNING_RGB["cv"])
+                d.line([(x - 3, hi), (x + 3, hi)], fill=LEARNING_RGB["cv"])
+        verdict = (curve.get("verdict") or {}).get(key, "")
+        for j, line in enumerate(_wrap(d, font, verdict, right - ox - 8)):
+            d.text((ox + 8, bottom + 30 + 12 * j), line, fill=(0, 0, 0), font=font)
+    return _png(im)
+
+
+def _wrap(d: ImageDraw.ImageDraw, font, text: str, width: float) -> list[str]:
+    lines: list[str] = []
+    for word in text.split():
+        if lines and d.textlength(lines[-1] + " " + word, font=font) <= width:
+            lines[-1] += " " + word
+        else:
+            lines.append(word)
+    return lines
+
+
+def stress_png(stress: dict[str, dict], cell: int = 22) -> bytes:
+    """PNG bytes of the stress tests: one row per rung, one column per perturbation.
+
+    Each cell is coloured by the drop of held-out F1 under the perturbation (amber: worse, blue:
+    better, white: unchanged; the scale is symmetric and written under the grid); a cell where F1
+    is undefined is grey.
+    """
+    keys = list(stress)
+    names: list[str] = []
+    for k in keys:
+        names += [n for n in stress[k] if n != "worst" and n not in names]
+    drops = np.full((len(keys), len(names)), np.nan)
+    for i, k in enumerate(keys):
+        base = _base_f1(stress[k])
+        for j, n in enumerate(names):
+            f1 = (stress[k].get(n) or {}).get("f1")
+            if base is not None and f1 is not None:
+                drops[i, j] = base - f1
+    font = ImageFont.load_default()
+    probe = ImageDraw.Draw(Image.new("RGB", (1, 1)))
+    label_w = int(max([probe.textlength(k, font=font) for k in keys], default=40)) + 12
+    head_h = int(max([probe.textlength(n, font=font) for n in names], default=40)) + 10
+    w, h = label_w + cell * len(names) + 10, head_h + cell * len(keys) + 40
+    im = Image.new("RGB", (max(w, 320), h), (255, 255, 255))
+    d = ImageDraw.Draw(im)
+    for j, n in enumerate(names):  # column names written upwards
+        tw = int(probe.textlength(n, font=font)) + 4
+        txt = Image.new("RGB", (tw, 12), (255, 255, 255))
+        ImageDraw.Draw(txt).text((2, 0), n, fill=(0, 0, 0), font=font)
+        rot = txt.rotate(90, expand=True)
+        im.paste(rot, (label_w + j * cell + (cell - 12) // 2, head_h - 4 - tw))
+    top = float(np.nanmax(np.abs(drops))) if np.isfinite(drops).any() else 0.0
+    rgb = colorize(np.nan_to_num(drops)) if drops.size else np.zeros((0, 0, 3), np.uint8)
+    for i, k in enumerate(keys):
+        y = head_h + i * cell
+        d.text((4, y + 5), k, fill=(0, 0, 0), font=font)
+        for j in range(len(names)):
+            x = label_w + j * cell
+            fill = (200, 200, 200) if np.isnan(drops[i, j]) else tuple(int(v) for v in rgb[i, j])
+            d.rectangle([x, y, x + cell - 2, y + cell - 2], fill=fill)
+            if stress[keys[i]].get("worst", {}).get("name") == names[j]:
+                d.rectangle([x, y, x + cell - 2, y + cell - 2], outline=(0, 0, 0))
+    d.text((4, head_h + cell * len(keys) + 8),
+           f"colour: drop of held-out F1 (amber worse, blue better), scale ±{top:.3f}; outlined: worst",
+           fill=(60, 60, 60), font=font)
+    return _png(im)
+
+
+def _base_f1(entry: dict) -> float | None:
+    """The unperturbed F1 behind a rung's stress entry."""
+    return (entry.get("worst") or {}).get("f1_unperturbed")

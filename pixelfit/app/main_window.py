@@ -12,6 +12,7 @@ from pixelfit import ladder_process
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets
 from pixelfit.app.session import Session
 from pixelfit.app.widgets.check_view import DataCheckView
+from pixelfit.app.widgets.checks_view import ChecksView
 from pixelfit.app.widgets.climb_panel import ClimbPanel
 from pixelfit.app.widgets.gallery import PatchGallery
 from pixelfit.app.widgets.inspector import RungInspector
@@ -112,6 +113,8 @@ class MainWindow(QtWidgets.QMainWindow):
         self.tabs.addTab(self.gallery, "Patches")
         self.check_view = DataCheckView(s)
         self.tabs.addTab(self.check_view, "Data check")
+        self.checks_view = ChecksView(s)
+        self.tabs.addTab(self.checks_view, "Will it hold up?")
         self.inspector = RungInspector(s)
         inspector_box = QtWidgets.QGroupBox("Rung inspector")
         QtWidgets.QVBoxLayout(inspector_box).addWidget(self.inspector)
@@ -131,7 +134,7 @@ class MainWindow(QtWidgets.QMainWindow):
         lay.addWidget(split, 1)
         self.setCentralWidget(central)
         self.panels = [self.report, self.prep_panel, self.climb, self.error_plot, self.axis_chooser, self.table,
-                       self.gallery, self.check_view, self.inspector]
+                       self.gallery, self.check_view, self.inspector, self.checks_view]
         self._unsubscribe = [s.subscribe("message", self._message), s.subscribe("run", self._update_actions),
                              s.subscribe("selection", self._update_actions),
                              s.subscribe("prep", self._update_actions), s.subscribe("rungs", self._update_actions),
@@ -296,6 +299,7 @@ class MainWindow(QtWidgets.QMainWindow):
         w = LadderWorker(spec, self)
         w.progressed.connect(self.session.report_progress)
         w.rung_ready.connect(self.session.add_rung)
+        w.checks_ready.connect(self.session.set_checks)
         w.ended.connect(self._climb_ended)
         self.worker = w
         # The ladder tab comes up on the next turn of the event loop: the run's start has cleared
@@ -324,7 +328,7 @@ class MainWindow(QtWidgets.QMainWindow):
         w, self.worker = self.worker, None
         if w is None:
             return
-        for sig in (w.progressed, w.rung_ready, w.ended):
+        for sig in (w.progressed, w.rung_ready, w.checks_ready, w.ended):
             sig.disconnect()
         if not w.stop():
             print("pixelfit: the ladder thread did not stop in time", file=sys.stderr)

@@ -21,6 +21,8 @@ Events (name: when)
 ``check``       the data check's suspect labels changed (after a climb)
 ``axis``        the x axis of the ladder plot changed
 ``spec``        the spec changed; every rung's spec entry and the answer were renewed
+``checks``      results of the checks after the ladder arrived (bias and variance, learning curve,
+                stress tests), or were cleared
 ``message``     a line for the status area: ``(text, is_error)``
 
 The data check itself comes with every prepared set (:attr:`Prepared.check`, the same core call
@@ -47,10 +49,11 @@ from pixelfit.firmware import export_c
 from pixelfit.ladder import Prepared, Rung, conclude, effective_folds, measure_integer, prepare, suspect_labels
 from pixelfit.outputs import error_curves, write_fit_outputs
 from pixelfit.review import library_versions, write_report
+from pixelfit.robustness import DEFAULT_REPLICATES, Checks, CheckSettings
 from pixelfit.rulefile import load_rule, save_rung
 
 EVENTS = ("dataset", "prep", "gallery", "settings", "run", "progress", "rungs", "selection", "threshold",
-          "map", "spec", "check", "axis", "message")
+          "map", "spec", "check", "axis", "checks", "message")
 
 #: Per-pixel maps the inspector can show: rung maps first, then maps of the training data.
 MAP_KINDS = {"native": "model's own weights", "permutation": "permutation (held-out)",
@@ -117,6 +120,8 @@ class RunSpec:
     folds: int
     seed: int
     scheduler: str | None = None  # a Dask scheduler's address: the lut searches run on that cluster
+    checks: CheckSettings | None = None  # the post-pass after the ladder, None for none
+    grey_test: np.ndarray | None = None  # grey held-out patches, for the stress tests
 
 
 class Session:
@@ -136,6 +141,8 @@ class Session:
         self.max_size: int | None = 8
         self.folds = 5
         self.scheduler: str | None = None
+        self.replicates = DEFAULT_REPLICATES  # bootstrap replicates per rung; 0: no bias-variance check
+        self.checks: Checks | None = None
         self.running = False
         self.progress_state: tuple[int, int, str] = (0, 0, "")
         self.run_prep: Prepared | None = None  # the prepared data the current rungs were trained on
@@ -363,7 +370,8 @@ class Session:
         self.progress_state = (0, 0, "starting")
         self._emit("run")
         self.say(f"climbing {len(plan)} rungs on {prep.binarizer.describe()} patches")
-        return RunSpec(prep, plan, self.folds, self.seed, self.scheduler)
+        return RunSpec(prep, plan, self.folds, self.seed, self.scheduler, CheckSettings(self.replicates, seed=self.seed),
+                       prep.dataset.images[prep.test_mask])
 
     def report_progress(self, done: int, total: int, message: str) -> None:
         self.progress_state = (done, total, message)
@@ -385,6 +393,28 @@ class Session:
         for r in self.rungs:
             measure_integer(r, self.run_prep.X_test, self.run_prep.y_test)
         self._emit("rungs")
+
+    def set_checks(self, checks: Checks) -> None:
+        """Results of the checks from the worker (everything finished so far)."""
+        self.checks = checks
+        self._emit("checks")
+
+    def rung_checks(self, key: str) -> dict:
+        """``bias_variance`` and ``stress`` of one rung (None each until measured)."""
+        return (self.checks or Checks()).rung_entry(key)
+
+    def decomposition_curves(self) -> dict[str, list[tuple[int, dict]]]:
+        """Per family, (size, bias-variance decomposition) of the rungs measured so far."""
+        out: dict[str, list[tuple[int, dict]]] = {}
+        for r in self.rungs:
+            bv = self.rung_checks(r.key)["bias_variance"]
+            if bv is not None and bv["loss"] is not None:
+                out.setdefault(r.family, []).append((r.size, bv))
+        return out
+
+    @property
+    def learning_curve(self) -> dict | None:
+        return None if self.checks is None else self.checks.learning_curve
 
     def end_run(self, outcome: str, detail: str = "") -> None:
         """``outcome`` is 'finished', 'cancelled' or 'failed' (``detail`` says why)."""
@@ -412,6 +442,9 @@ class Session:
         self.run_prep = None
         self.run_settings = None
         self._at_threshold = None
+        if self.checks is not None:
+            self.checks = None
+            self._emit("checks")
         if had:
             self._emit("rungs")
         if self.selected is not None:
@@ -589,7 +622,8 @@ class Session:
             self.say("select a rung to save first", True)
             return None
         operating = {"threshold": self.threshold, "chosen_on": self.threshold_chosen_on}
-        written = self._write(path, lambda: save_rung(path, self.run_prep, r, operating))
+        written = self._write(path, lambda: save_rung(path, self.run_prep, r, operating,
+                                                      self.rung_checks(r.key) if self.checks else None))
         if written is None:
             return None
         out = Path(written)
@@ -669,10 +703,11 @@ class Session:
             with tempfile.TemporaryDirectory(prefix="pixelfit-review-") as tmp:
                 rungs = [dataclasses.replace(r, rule_file=f"rules/{r.key}.json") for r in self.rungs]
                 for r in rungs:
-                    save_rung(Path(tmp) / f"rules/{r.key}.json", prep, r)
+                    save_rung(Path(tmp) / f"rules/{r.key}.json", prep, r,
+                              checks=self.rung_checks(r.key) if self.checks else None)
                 rec = next((r for r in rungs if self.recommended is not None and r.key == self.recommended.key), None)
                 write_fit_outputs(tmp, prep, rungs, rec, dict(self.run_settings or self._fit_settings(prep)), False,
-                                  self.spec, self.answer)
+                                  self.spec, self.answer, self.checks)
                 return write_report(tmp, path, dataset=prep.dataset)
 
         written = self._write(path, write)

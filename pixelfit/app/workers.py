@@ -23,6 +23,7 @@ from pixelfit.app.session import RunSpec
 from pixelfit.errors import PixelfitError
 from pixelfit.ladder import LadderCancelled
 from pixelfit.ladder_process import TrainerLost, run_ladder_in_process
+from pixelfit.robustness import CheckProgress
 
 
 class LadderWorker(QtCore.QThread):
@@ -33,12 +34,15 @@ class LadderWorker(QtCore.QThread):
     progressed(done, total, message)
     rung_ready(rung)
         a finished :class:`pixelfit.ladder.Rung`; the worker keeps no reference to it afterwards
+    checks_ready(checks)
+        the :class:`pixelfit.robustness.Checks` finished so far by the post-pass after the ladder
     ended(outcome, detail)
         outcome is 'finished', 'cancelled' or 'failed'; sent exactly once, last
     """
 
     progressed = QtCore.Signal(int, int, str)
     rung_ready = QtCore.Signal(object)
+    checks_ready = QtCore.Signal(object)
     ended = QtCore.Signal(str, str)
 
     def __init__(self, spec: RunSpec, parent: QtCore.QObject | None = None):
@@ -62,9 +66,12 @@ class LadderWorker(QtCore.QThread):
         spec = self._spec
         try:
             for pr in run_ladder_in_process(spec.prep, spec.plan, spec.folds, spec.seed, cancel=self._cancel.is_set,
-                                            scheduler=spec.scheduler):
+                                            scheduler=spec.scheduler, checks=spec.checks,
+                                            grey_test=spec.grey_test):
                 if pr.rung is not None:
                     self.rung_ready.emit(pr.rung)
+                if isinstance(pr, CheckProgress) and pr.checks is not None:
+                    self.checks_ready.emit(pr.checks)
                 self.progressed.emit(pr.done, pr.total, pr.message)
         except LadderCancelled:
             self.ended.emit("cancelled", "")

@@ -21,6 +21,7 @@ from pixelfit.data._import import (
     load_for_apply,
     read_patch,
 )
+from pixelfit.data._perturb import SHIFTS, grey_perturbations, shift_name, shift_patches, stuck_pixel, with_shifts
 from pixelfit.data._split import SPLIT_METHODS, check_seed, fingerprint, grouped_split, raw_fingerprint, stratified_split
 
 __all__ = [
@@ -28,4 +29,5 @@ __all__ = [
     "choose_positive", "load_dataset", "load_for_apply", "read_patch", "fingerprint", "raw_fingerprint",
     "stratified_split", "SPLIT_METHODS", "grouped_split", "CHECK_KEYS", "FINDINGS", "DataCheck", "Groups",
     "check_csv_rows", "check_data", "grey_groups", "pack_binarized", "check_seed",
+    "SHIFTS", "grey_perturbations", "shift_name", "shift_patches", "stuck_pixel", "with_shifts",
 ]

@@ -36,6 +36,14 @@ from pixelfit.evaluate._spec import (
     patches_needed,
     verdict,
 )
+from pixelfit.evaluate._variance import (
+    VERDICT_FLAT,
+    VERDICT_HELPS,
+    VERDICT_UNCLEAR,
+    bias_variance_01,
+    last_segment_slope,
+    slope_verdict,
+)
 
 # Class sizes are counted in pixelfit.models; they are re-exported here beside the bounds that use them.
 from pixelfit.models import log2_comb, log2_lut_class, log2_memorize_class, log2_tree_class  # noqa: E402, I001
@@ -47,4 +55,6 @@ __all__ = [
     "detection_metrics", "error_rate", "metrics_from_counts", "wilson_interval", "log2_comb", "log2_lut_class",
     "log2_memorize_class", "log2_tree_class", "QUANTIZED_F1_TOLERANCE", "quantization_check",
     "Spec", "answer", "apply_spec", "cost_order", "evaluate_spec", "lower_bound", "parse_spec", "patches_needed", "verdict",
+    "VERDICT_FLAT", "VERDICT_HELPS", "VERDICT_UNCLEAR", "bias_variance_01",
+    "last_segment_slope", "slope_verdict",
 ]

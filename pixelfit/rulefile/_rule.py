@@ -67,7 +67,7 @@ def model_section(family: str, size: int, est, shape: tuple[int, int]) -> dict:
     return FAMILIES[family].model_section(est, size, shape)
 
 
-def rule_document(prep, rung, operating: dict | None = None) -> dict:
+def rule_document(prep, rung, operating: dict | None = None, checks: dict | None = None) -> dict:
     """The rule-file document of one trained rung of a ladder.
 
     Parameters
@@ -76,8 +76,11 @@ def rule_document(prep, rung, operating: dict | None = None) -> dict:
     rung : pixelfit.ladder.Rung
     operating : dict, optional
         ``{threshold, chosen_on}`` to ship; default the rung's own (its spec threshold, else 0.5).
+    checks : dict or None
+        The rung's ``bias_variance`` and ``stress`` figures (:meth:`pixelfit.robustness.Checks.rung_entry`),
+        written as top-level fields of the same names when given.
     """
-    return {
+    doc = {
         "format": RULE_FORMAT,
         "schema_version": RULE_VERSION,
         "created": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
@@ -98,16 +101,21 @@ def rule_document(prep, rung, operating: dict | None = None) -> dict:
             "fingerprint": prep.train_fingerprint,
             "fingerprint_of": "SHA-256 over the binarized training patches (bit-packed rows) and their labels",
             "source": prep.dataset.source, "n_train": int(len(prep.y_train)), "n_test": int(len(prep.y_test)),
-            "split": {"test_fraction": prep.test_fraction, "seed": prep.seed, "presplit": prep.presplit},
+            "split": {"test_fraction": prep.test_fraction, "seed": prep.seed, "presplit": prep.presplit,
+                      "augment": getattr(prep, "augment", None)},
         },
         "caution": CAUTION,
         **({} if getattr(rung, "quantized", None) is None else {"quantized": rung.quantized}),
     }
+    if checks is not None:
+        doc["bias_variance"] = checks.get("bias_variance")
+        doc["stress"] = checks.get("stress")
+    return doc
 
 
-def save_rung(path: str | os.PathLike, prep, rung, operating: dict | None = None) -> Path:
+def save_rung(path: str | os.PathLike, prep, rung, operating: dict | None = None, checks: dict | None = None) -> Path:
     """Write the rule file of one rung atomically; returns the path. See :func:`rule_document`."""
-    doc = rule_document(prep, rung, operating)
+    doc = rule_document(prep, rung, operating, checks)
     parse_rule(doc)  # never write a file we would refuse to read
     return write_json(path, doc)
 

@@ -71,6 +71,69 @@ class PixelMap(pg.GraphicsLayoutWidget):
         self.plot.setRange(xRange=(0, w), yRange=(0, h), padding=0.02)
 
 
+def _drop_colour(drop: float | None, scale: float) -> QtGui.QColor:
+    """White for no change, amber for a drop of F1, blue for a gain; grey where undefined."""
+    if drop is None:
+        return QtGui.QColor(210, 210, 210)
+    t = max(-1.0, min(1.0, drop / scale)) if scale > 0 else 0.0
+    mid, pos, neg = (246, 246, 242), (214, 120, 16), (46, 92, 160)
+    end = pos if t >= 0 else neg
+    return QtGui.QColor(*[int(round(m + (e - m) * abs(t))) for m, e in zip(mid, end)])
+
+
+class StressView(QtWidgets.QWidget):
+    """The selected rung's stress tests: held-out F1 under each perturbation and its drop, coloured."""
+
+    def __init__(self, parent: QtWidgets.QWidget | None = None):
+        super().__init__(parent)
+        self.caption = QtWidgets.QLabel("")
+        self.caption.setWordWrap(True)
+        self.table = QtWidgets.QTableWidget(2, 0)
+        self.table.setVerticalHeaderLabels(["F1", "drop"])
+        self.table.setEditTriggers(QtWidgets.QAbstractItemView.EditTrigger.NoEditTriggers)
+        self.table.setSelectionMode(QtWidgets.QAbstractItemView.SelectionMode.NoSelection)
+        self.table.verticalHeader().setDefaultSectionSize(22)
+        self.table.horizontalHeader().setDefaultSectionSize(62)
+        self.table.setFixedHeight(22 * 2 + 30 + 18)
+        lay = QtWidgets.QVBoxLayout(self)
+        lay.setContentsMargins(0, 0, 0, 0)
+        lay.addWidget(self.caption)
+        lay.addWidget(self.table)
+        self.show_rung(None, {"bias_variance": None, "stress": None})
+
+    def show_rung(self, key: str | None, checks: dict) -> None:
+        """Show ``checks`` (a rung's ``bias_variance`` and ``stress``) for rung ``key``."""
+        stress, bv = checks.get("stress"), checks.get("bias_variance")
+        names = [n for n in (stress or {}) if n != "worst"]
+        self.table.setColumnCount(len(names))
+        self.table.setHorizontalHeaderLabels(names)
+        parts = []
+        if stress:
+            worst = stress["worst"]
+            base = worst.get("f1_unperturbed")
+            drops = [None if base is None or stress[n]["f1"] is None else base - stress[n]["f1"] for n in names]
+            scale = max([abs(d) for d in drops if d is not None], default=0.0)
+            for j, (n, d) in enumerate(zip(names, drops)):
+                for row, text in ((0, _pct(stress[n]["f1"])), (1, "–" if d is None else f"{d:+.3f}")):
+                    item = QtWidgets.QTableWidgetItem(text)
+                    item.setTextAlignment(QtCore.Qt.AlignmentFlag.AlignCenter)
+                    item.setBackground(QtGui.QBrush(_drop_colour(d, scale)))
+                    tip = stress[n]
+                    item.setToolTip(f"{n}: precision {_pct(tip['precision'])}, recall {_pct(tip['recall'])}, "
+                                    f"F1 {_pct(tip['f1'])}")
+                    self.table.setItem(row, j, item)
+            parts.append("stress tests (grey held-out patches perturbed, then binarized): "
+                         + ("no F1 defined" if worst["name"] is None else
+                            f"worst {worst['name']}, F1 {_pct(base)} → drop {worst['f1_drop']:.3f}"))
+        elif key is not None:
+            parts.append("stress tests: not measured yet")
+        if bv and bv.get("loss") is not None:
+            parts.append(f"bias–variance over {bv['replicates']} replicates: loss {bv['loss']:.3f} = bias "
+                         f"{bv['bias']:.3f} + unbiased variance {bv['unbiased_variance']:.3f} − biased variance "
+                         f"{bv['biased_variance']:.3f}")
+        self.caption.setText("<br>".join(parts))
+
+
 class RungInspector(Listens, QtWidgets.QWidget):
     """Everything about the selected rung."""
 
@@ -108,6 +171,7 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self.go_target.setToolTip("Set the threshold to the one chosen for the spec on cross-validation scores "
                                   "(the held-out patches only confirm it)")
 
+        self.stress = StressView()
         self.fp_label = QtWidgets.QLabel("")
         self.fn_label = QtWidgets.QLabel("")
         self.fp_list = self._thumb_list()
@@ -147,6 +211,7 @@ class RungInspector(Listens, QtWidgets.QWidget):
         lay.addWidget(self.map_caption)
         lay.addWidget(self.pr_table)
         lay.addLayout(thr)
+        lay.addWidget(self.stress)
         lay.addLayout(misses, 1)
 
         self.kind.activated.connect(lambda i: session.set_map_kind(self.kind.itemData(i)))
@@ -163,6 +228,7 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self.listen(session, "map", self._show_map)
         self.listen(session, "prep", self._prep_changed)
         self.listen(session, "spec", self._target_changed)
+        self.listen(session, "checks", self._show_stress)
         self.refresh()
 
     @staticmethod
@@ -221,7 +287,13 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self._put_threshold()
         self._show_map()
         self._fill_static_rows()
+        self._show_stress()
         self._threshold_later.request()
+
+    def _show_stress(self) -> None:
+        r = self.session.selected
+        self.stress.show_rung(None if r is None else r.key,
+                              {} if r is None else self.session.rung_checks(r.key))
 
     def _put_threshold(self) -> None:
         t = self.session.threshold
