@@ -59,6 +59,12 @@ def _empty_grid_rows(lines: list[str]) -> list[str]:
     return out[:-1]
 
 
+def _spec_only(lines: list[str]) -> list[str]:
+    """The command, then the spec table and the answer (the ladder table is the one shown before)."""
+    start = next(i for i, line in enumerate(lines) if line.startswith("rung") and line.rstrip().endswith("verdict"))
+    return [lines[0], "... (the same ladder table as above)"] + lines[start:]
+
+
 def _cut_caution(lines: list[str]) -> list[str]:
     return [re.sub(r"^(caution: [^:]*:).*$", r"\1 ...", line) for line in lines]
 
@@ -74,6 +80,8 @@ BLOCKS = [
     Block("scan", ["pixelfit scan bottle-caps"]),
     Block("fit", ["pixelfit fit bottle-caps --out runs/bottle-caps --families constant,lut,tree,memorize"],
           [_drop([r"^tree-[23] "])]),
+    Block("spec", ["pixelfit fit bottle-caps --out runs/bottle-caps-spec --families constant,lut,tree,memorize "
+                   '--spec "precision>=0.75,recall>=0.70"'], [_spec_only]),
     Block("show", ["pixelfit show runs/bottle-caps/rules/lut-3.json"], [_empty_grid_rows, _cut_caution]),
     Block("apply", ["pixelfit apply runs/bottle-caps/rules/tree-5.json demo_sets/bottle-caps "
                     "--split runs/bottle-caps/split.csv --subset test --csv runs/held-out.csv",

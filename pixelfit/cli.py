@@ -359,7 +359,10 @@ def cmd_show(args) -> int:
               f"(lower {fmt(t.get('recall_lower'))}))")
     cost = ev.get("cost")
     if isinstance(cost, dict):
-        print("firmware cost: " + ", ".join(f"{k} {cost.get(k)}" for k in ("flash_bytes", "ram_bytes", "ops")))
+        ops = cost.get("ops")
+        ops_text = (f"at most {ops.get('total')} operations per patch" if isinstance(ops, dict) else f"ops {ops}")
+        print(f"firmware cost (integer-only C export): {cost.get('flash_bytes')} bytes of flash tables, "
+              f"{cost.get('ram_bytes')} bytes of locals, {ops_text}")
     print("metrics (at the rule's own decision, score above 0.5):")
     print(metrics_line("train", ev.get("train")))
     cv = ev.get("cv")
@@ -513,12 +516,13 @@ def cmd_export(args) -> int:
     print(f"integer-only predictor: {c['flash_bytes']} bytes of flash tables, {c['ram_bytes']} bytes of locals, "
           f"at most {o['total']} operations per patch ({o['pixel_reads']} pixel reads, {o['additions']} additions, "
           f"{o['multiplications']} multiplications, {o['comparisons']} comparisons)")
-    print("decision: " + ("the model's own" if threshold is None else f"score >= {threshold:g}")
+    print(f"decision: positive when the score is above {threshold:g} (chosen on "
+          f"{'the command line' if args.threshold is not None else rule.operating_chosen_on})"
           + ("; exact (no rounding)" if not integer.facts else "; fixed point, see the header's comment"))
     measured = X if X is not None else vectors
     check = quantization_check(rule.predict(measured, threshold), integer.predict(measured), labels)
     share = "-" if check["agreement"] is None else f"{check['agreement']:.1%}"
-    print(f"agrees with the floating-point model on {check['agree']} of {check['n']} patches ({share}) of {where}")
+    print(f"agrees with the floating-point model on {check['agree']} of {where} ({share})")
     if check["test"] is not None:
         print(metrics_line("integer", check["test"]).strip())
         print(f"  (the floating-point model: F1 {fmt(check['f1_float'])})")
@@ -656,7 +660,7 @@ def build_parser() -> argparse.ArgumentParser:
     e.add_argument("--split", metavar="SPLIT_CSV", help="a split.csv from `pixelfit fit`; with --subset, take "
                    "that part of --vectors-from only (measure on held-out patches)")
     e.add_argument("--subset", choices=("train", "test"), default="test", help="part of --split to use (test)")
-    e.add_argument("--threshold", type=float, metavar="T", help="call positive when score >= T (default: the "
+    e.add_argument("--threshold", type=float, metavar="T", help="call positive when score > T (default: the "
                    "rule's recorded operating threshold, else its own decision)")
     e.set_defaults(func=cmd_export)
     g = sub.add_parser("gui", help="open the desktop application",
