@@ -165,7 +165,7 @@ def test_save_dialogs_start_in_the_last_folder_never_a_demo_folder(window, tmp_p
 
 
 def test_legend_sits_beside_the_plot_and_switches_curves(qtbot, window, tmp_path):
-    w, s = window, window.session
+    w = window
     assert w.open_path(noisy_folder(tmp_path / "a"))
     climb(qtbot, w)
     plot = w.error_plot
