@@ -149,6 +149,7 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self.kind = QtWidgets.QComboBox()
         for k, label in MAP_KINDS.items():
             self.kind.addItem(label, k)
+        self.kind.setSizeAdjustPolicy(QtWidgets.QComboBox.SizeAdjustPolicy.AdjustToContents)  # per-family names
         self.map_caption = QtWidgets.QLabel("")
         self.pixmap = PixelMap()
         self.pixmap.setMinimumSize(220, 220)
