@@ -166,9 +166,9 @@ def ladder_png(curves: dict[str, dict[str, list[tuple[float, float | None]]]], s
             pts = [(px(s), py(e)) for s, e in curves[fam].get(kind, []) if e is not None]
             if len(pts) > 1:
                 _dashed(d, pts, rgb, 3 if kind == "cv" else 2, dashes)
-            if kind == "cv":
-                for x, y in pts:
-                    d.ellipse([x - 3, y - 3, x + 3, y + 3], fill=rgb)
+            r = 3 if kind == "cv" else 2
+            for x, y in pts:
+                d.ellipse([x - r, y - r, x + r, y + r], fill=rgb)
         if recommended and recommended[0] == fam:
             x = px(recommended[1])
             d.line([(x, top), (x, bottom)], fill=(40, 150, 70), width=1)
