@@ -406,7 +406,6 @@ def cmd_apply(args) -> int:
     names = [n for n, k in zip(ds.names, keep) if k]
     labels = ds.labels[keep]
     labeled = bool(len(labels)) and all(lab != "" for lab in labels)
-    info = sys.stderr if not args.csv else sys.stdout
     truth, mismatch = _apply_truth(rule, labels if labeled else None, args.positive)
     buf = io.StringIO()
     wr = csv.writer(buf, lineterminator="\n")
@@ -415,11 +414,14 @@ def cmd_apply(args) -> int:
     for i, name in enumerate(names):
         row = [name, f"{scores[i]:.6g}", rule.positive if pred[i] else rule.negative]
         wr.writerow(row + ([labels[i]] if labeled else []))
-    if args.csv:
+    # The rows go to --csv (a file, or "-" for standard output) or, with --verbose, to standard
+    # output; without either only the summary is printed (on standard error when rows share stdout).
+    to_stdout = args.csv == "-" or (args.verbose and not args.csv)
+    if args.csv and args.csv != "-":
         write_text(args.csv, buf.getvalue())
-    else:
+    elif to_stdout:
         sys.stdout.write(buf.getvalue())
-    info = sys.stderr if not args.csv else sys.stdout
+    info = sys.stderr if to_stdout else sys.stdout
     used = (f"threshold {args.threshold:g}, given" if args.threshold is not None else
             f"threshold {rule.operating_threshold:g}, the rule's, chosen on {rule.operating_chosen_on}")
     print(f"applied {rule.family}-{rule.size} to {len(names)} patches: {int(pred.sum())} called {rule.positive!r} "
@@ -433,8 +435,10 @@ def cmd_apply(args) -> int:
             print(f"no patch is labeled {args.positive or rule.positive!r}; recall is undefined", file=info)
         m = detection_metrics(truth, pred)
         print(metrics_line("labels", m).strip(), file=info)
-    if args.csv:
+    if args.csv and args.csv != "-":
         print(f"wrote {args.csv}", file=info)
+    elif not to_stdout:
+        print("one line per patch: add --csv OUT.csv (or --csv - for standard output) or --verbose", file=info)
     return EXIT_OK
 
 
@@ -637,7 +641,9 @@ def build_parser() -> argparse.ArgumentParser:
                        "path,score,prediction rows (plus label when known); with labels, print the metrics.")
     a.add_argument("rule")
     a.add_argument("path", help="folder (any layout, labels optional), image file or .npz")
-    a.add_argument("--csv", metavar="OUT", help="write the rows here instead of standard output")
+    a.add_argument("--csv", metavar="OUT", help="write one row per patch (path, score, prediction, label) to OUT; "
+                   "'-' for standard output. Without it only the summary is printed")
+    a.add_argument("--verbose", action="store_true", help="print the per-patch rows on standard output too")
     a.add_argument("--threshold", type=float, metavar="T", help="call positive when score > T "
                    "(default: the operating threshold stored in the rule)")
     a.add_argument("--split", metavar="SPLIT_CSV", help="a split.csv from `pixelfit fit`; with --subset, apply to "

@@ -289,6 +289,12 @@ def demo_cache_folder() -> Path:
     return Path(user_cache_dir("pixelfit", appauthor=False)) / "demo_sets"
 
 
+def demo_folders() -> list[Path]:
+    """The folders that hold bundled or generated demo sets (whether or not they exist)."""
+    here = Path(__file__).resolve().parent
+    return [Path("demo_sets").resolve(), here.parent / "demo_sets", here / "demo_sets", demo_cache_folder()]
+
+
 def resolve_dataset_path(path: str | os.PathLike, note: Callable[[str], None] | None = None) -> Path:
     """The path as given, or a bundled demo set by name (``bottle-caps``) when no such path exists.
 

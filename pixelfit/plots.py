@@ -11,8 +11,41 @@ from PIL import Image, ImageDraw, ImageFont
 NEG_RGB = np.array([46, 92, 160], np.float64)
 MID_RGB = np.array([246, 246, 242], np.float64)
 POS_RGB = np.array([214, 120, 16], np.float64)
-#: Line colours of the error curves.
-CURVE_RGB = {"train": (60, 60, 60), "cv": (46, 92, 160), "test": (214, 120, 16), "bound": (150, 150, 150)}
+#: Sequential ramp for one-signed maps (every value >= 0): (position in [0, 1], colour) stops from
+#: near white through amber to dark brown, so the whole scale carries the values.
+SEQUENTIAL_STOPS = ((0.0, (246, 246, 242)), (0.5, (214, 120, 16)), (1.0, (96, 44, 6)))
+#: One colour per model family: the window's ladder plot and table and the CLI's ladder.png.
+FAMILY_RGB = {"constant": (110, 110, 110), "lut": (46, 92, 160), "nb": (40, 150, 70), "logistic": (150, 60, 150),
+              "tree": (214, 120, 16), "mlp": (190, 50, 50), "memorize": (20, 150, 160)}
+#: The error curves of the ladder: their labels, and the dash pattern of each in ladder.png
+#: (lengths in pixels of drawn and skipped pieces; empty: solid), mirroring the window's pen styles.
+CURVE_LABELS = {"train": "train error", "cv": "CV error", "test": "held-out error", "bound": "bound (95 %)"}
+CURVE_DASHES: dict[str, tuple[int, ...]] = {"train": (7, 4), "cv": (), "test": (2, 3), "bound": (8, 3, 2, 3)}
+
+
+#: Pixels between words: the default font's space is two pixels wide, and "CV error" read as "CVerror".
+WORD_GAP = 4
+
+
+def _text_len(d: ImageDraw.ImageDraw, text: str, font) -> float:
+    words = text.split(" ")
+    return sum(d.textlength(w, font=font) for w in words) + WORD_GAP * (len(words) - 1)
+
+
+def _text(d: ImageDraw.ImageDraw, xy: tuple[float, float], text: str, fill, font) -> None:
+    """Draw ``text`` word by word, WORD_GAP pixels apart."""
+    x, y = xy
+    for w in text.split(" "):
+        if w:
+            d.text((x, y), w, fill=fill, font=font)
+        x += d.textlength(w, font=font) + WORD_GAP
+
+
+def one_signed(values: np.ndarray) -> bool:
+    """True when every finite value is >= 0: such a map gets the sequential scale."""
+    v = np.asarray(values, dtype=np.float64)
+    v = v[np.isfinite(v)]
+    return bool(v.size) and float(v.min()) >= 0.0
 
 
 def colorize(values: np.ndarray) -> np.ndarray:
@@ -25,13 +58,48 @@ def colorize(values: np.ndarray) -> np.ndarray:
     return np.rint(rgb).astype(np.uint8)
 
 
+def colorize_sequential(values: np.ndarray) -> np.ndarray:
+    """One-signed map -> RGB uint8 (h, w, 3): 0 near white, the largest value darkest."""
+    v = np.asarray(values, dtype=np.float64)
+    top = float(np.nanmax(v)) if v.size else 0.0
+    t = np.zeros_like(v) if top <= 0 or not np.isfinite(top) else np.clip(np.nan_to_num(v) / top, 0, 1)
+    pos = [p for p, _ in SEQUENTIAL_STOPS]
+    rgb = np.stack([np.interp(t, pos, [c[k] for _, c in SEQUENTIAL_STOPS]) for k in range(3)], axis=-1)
+    return np.rint(rgb).astype(np.uint8)
+
+
 def heatmap_png(values: np.ndarray, scale: int = 24) -> bytes:
-    """PNG bytes of a per-pixel map, each pixel drawn as a ``scale`` x ``scale`` square, row-major."""
-    rgb = colorize(values)
+    """PNG bytes of a per-pixel map, each pixel drawn as a ``scale`` x ``scale`` square, row-major.
+
+    One-signed maps use the sequential scale, signed maps the diverging one.
+    """
+    rgb = colorize_sequential(values) if one_signed(values) else colorize(values)
     im = Image.fromarray(rgb, "RGB").resize((rgb.shape[1] * scale, rgb.shape[0] * scale), Image.Resampling.NEAREST)
     buf = io.BytesIO()
     im.save(buf, format="PNG")
     return buf.getvalue()
+
+
+def _dashed(d: ImageDraw.ImageDraw, pts: list[tuple[float, float]], fill, width: int, dashes: tuple[int, ...]) -> None:
+    """A polyline with a repeating dash pattern of even length (empty: solid), running on across corners."""
+    if not dashes:
+        d.line(pts, fill=fill, width=width)
+        return
+    k, left, on = 0, float(dashes[0]), True
+    for (x0, y0), (x1, y1) in zip(pts, pts[1:]):
+        length = float(np.hypot(x1 - x0, y1 - y0))
+        at = 0.0
+        while at < length:
+            step = min(left, length - at)
+            if on:
+                a, b = at / length, (at + step) / length
+                d.line([(x0 + (x1 - x0) * a, y0 + (y1 - y0) * a), (x0 + (x1 - x0) * b, y0 + (y1 - y0) * b)],
+                       fill=fill, width=width)
+            at += step
+            left -= step
+            if left <= 1e-9:
+                k = (k + 1) % len(dashes)
+                left, on = float(dashes[k]), k % 2 == 0  # even pieces drawn, odd ones skipped
 
 
 def _x_axis(x0: float, x1: float, lo: float, hi: float, log_x: bool):
@@ -68,15 +136,15 @@ def ladder_png(curves: dict[str, dict[str, list[tuple[float, float | None]]]], s
     d = ImageDraw.Draw(im)
     font = ImageFont.load_default()
     x0 = 8
-    for kind, rgb in CURVE_RGB.items():
-        d.line([(x0, 14), (x0 + 18, 14)], fill=rgb, width=3)
-        d.text((x0 + 22, 8), {"train": "train error", "cv": "CV error", "test": "held-out error",
-                              "bound": "bound (95 %)"}[kind], fill=(0, 0, 0), font=font)
-        x0 += 120
+    for kind, label in CURVE_LABELS.items():  # line style keys in black; each panel is in its family's colour
+        _dashed(d, [(x0, 14), (x0 + 24, 14)], (0, 0, 0), 3 if kind == "cv" else 2, CURVE_DASHES[kind])
+        _text(d, (x0 + 30, 8), label, fill=(0, 0, 0), font=font)
+        x0 += 46 + int(_text_len(d, label, font=font))
     for i, fam in enumerate(families):
         ox, oy = (i % cols) * pw, 28 + (i // cols) * ph
         left, top, right, bottom = ox + pad, oy + 18, ox + pw - 10, oy + ph - 28
-        d.text((ox + pad, oy + 2), fam, fill=(0, 0, 0), font=font)
+        rgb = FAMILY_RGB.get(fam, (0, 0, 0))
+        _text(d, (ox + pad, oy + 2), fam, fill=rgb, font=font)
         d.rectangle([left, top, right, bottom], outline=(180, 180, 180))
         sizes = sorted({s for pts in curves[fam].values() for s, _ in pts})
         if not sizes:
@@ -90,22 +158,23 @@ def ladder_png(curves: dict[str, dict[str, list[tuple[float, float | None]]]], s
 
         for e in (0.0, 0.25, 0.5, 0.75, 1.0):
             d.line([(left, py(e)), (right, py(e))], fill=(235, 235, 235))
-            d.text((ox + 4, py(e) - 6), f"{e:.2f}", fill=(90, 90, 90), font=font)
+            _text(d, (ox + 4, py(e) - 6), f"{e:.2f}", fill=(90, 90, 90), font=font)
         for s in sizes:
-            d.text((px(s) - 6, bottom + 4), str(s), fill=(90, 90, 90), font=font)
-        d.text((right - 70, bottom + 14), size_names.get(fam, "size"), fill=(90, 90, 90), font=font)
-        for kind, rgb in CURVE_RGB.items():
+            _text(d, (px(s) - 6, bottom + 4), str(s), fill=(90, 90, 90), font=font)
+        _text(d, (right - 70, bottom + 14), size_names.get(fam, "size"), fill=(90, 90, 90), font=font)
+        for kind, dashes in CURVE_DASHES.items():
             pts = [(px(s), py(e)) for s, e in curves[fam].get(kind, []) if e is not None]
             if len(pts) > 1:
-                d.line(pts, fill=rgb, width=2)
+                _dashed(d, pts, rgb, 3 if kind == "cv" else 2, dashes)
+            r = 3 if kind == "cv" else 2
             for x, y in pts:
-                d.ellipse([x - 2, y - 2, x + 2, y + 2], fill=rgb)
+                d.ellipse([x - r, y - r, x + r, y + r], fill=rgb)
         if recommended and recommended[0] == fam:
             x = px(recommended[1])
             d.line([(x, top), (x, bottom)], fill=(40, 150, 70), width=1)
-            label_w = d.textlength("recommended", font=font)
+            label_w = _text_len(d, "recommended", font=font)
             tx = x + 3 if x + 3 + label_w < right else x - 3 - label_w
-            d.text((tx, top + 2), "recommended", fill=(40, 150, 70), font=font)
+            _text(d, (tx, top + 2), "recommended", fill=(40, 150, 70), font=font)
     buf = io.BytesIO()
     im.save(buf, format="PNG")
     return buf.getvalue()
@@ -133,8 +202,8 @@ def _legend(d: ImageDraw.ImageDraw, font, items: list[tuple[str, tuple[int, int,
     x0 = 8
     for label, rgb in items:
         d.line([(x0, y), (x0 + 18, y)], fill=rgb, width=3)
-        d.text((x0 + 22, y - 6), label, fill=(0, 0, 0), font=font)
-        x0 += 32 + int(d.textlength(label, font=font))
+        _text(d, (x0 + 22, y - 6), label, fill=(0, 0, 0), font=font)
+        x0 += 32 + int(_text_len(d, label, font=font))
 
 
 def decomposition_png(curves: dict[str, list[tuple[float, dict | None]]], size_names: dict[str, str]) -> bytes:
@@ -156,7 +225,7 @@ def decomposition_png(curves: dict[str, list[tuple[float, dict | None]]], size_n
     for i, fam in enumerate(families):
         ox, oy = (i % cols) * pw, 28 + (i // cols) * ph
         left, top, right, bottom = ox + pad, oy + 18, ox + pw - 10, oy + ph - 28
-        d.text((ox + pad, oy + 2), fam, fill=(0, 0, 0), font=font)
+        _text(d, (ox + pad, oy + 2), fam, fill=(0, 0, 0), font=font)
         d.rectangle([left, top, right, bottom], outline=(180, 180, 180))
         pts = [(s, bv) for s, bv in curves[fam] if bv is not None and bv.get("loss") is not None]
         sizes = sorted({s for s, _ in curves[fam]})
@@ -173,10 +242,10 @@ def decomposition_png(curves: dict[str, list[tuple[float, dict | None]]], size_n
         for k in range(5):
             e = top_v * k / 4
             d.line([(left, py(e)), (right, py(e))], fill=(235, 235, 235))
-            d.text((ox + 4, py(e) - 6), f"{e:.3g}", fill=(90, 90, 90), font=font)
+            _text(d, (ox + 4, py(e) - 6), f"{e:.3g}", fill=(90, 90, 90), font=font)
         for s in sizes:
-            d.text((px(s) - 6, bottom + 4), str(s), fill=(90, 90, 90), font=font)
-        d.text((right - 70, bottom + 14), size_names.get(fam, "size"), fill=(90, 90, 90), font=font)
+            _text(d, (px(s) - 6, bottom + 4), str(s), fill=(90, 90, 90), font=font)
+        _text(d, (right - 70, bottom + 14), size_names.get(fam, "size"), fill=(90, 90, 90), font=font)
         for kind, rgb in DECOMPOSITION_RGB.items():
             xy = [(px(s), py(bv[kind])) for s, bv in pts]
             if len(xy) > 1:
@@ -184,7 +253,7 @@ def decomposition_png(curves: dict[str, list[tuple[float, dict | None]]], size_n
             for x, y in xy:
                 d.ellipse([x - 2, y - 2, x + 2, y + 2], fill=rgb)
         if not pts:
-            d.text((left + 8, top + 8), "not measured", fill=(120, 120, 120), font=font)
+            _text(d, (left + 8, top + 8), "not measured", fill=(120, 120, 120), font=font)
     return _png(im)
 
 
@@ -206,7 +275,7 @@ def learning_curve_png(curve: dict) -> bytes:
     for i, key in enumerate(keys):
         ox, oy = i * pw, 28
         left, top, right, bottom = ox + pad, oy + 18, ox + pw - 10, oy + ph - 56
-        d.text((ox + pad, oy + 2), key, fill=(0, 0, 0), font=font)
+        _text(d, (ox + pad, oy + 2), key, fill=(0, 0, 0), font=font)
         d.rectangle([left, top, right, bottom], outline=(180, 180, 180))
         px = _x_axis(left + 6, right - 6, 0.0, 1.0, False)
         unit = _y_axis(top, bottom)
@@ -217,11 +286,11 @@ def learning_curve_png(curve: dict) -> bytes:
         for k in range(5):
             e = top_v * k / 4
             d.line([(left, py(e)), (right, py(e))], fill=(235, 235, 235))
-            d.text((ox + 4, py(e) - 6), f"{e:.3g}", fill=(90, 90, 90), font=font)
+            _text(d, (ox + 4, py(e) - 6), f"{e:.3g}", fill=(90, 90, 90), font=font)
         mine = [p for p in points if p["rung"] == key]
         for p in mine:
-            d.text((px(p["fraction"]) - 8, bottom + 4), f"{p['fraction']:.0%}", fill=(90, 90, 90), font=font)
-        d.text((right - 120, bottom + 16), "share of training part", fill=(90, 90, 90), font=font)
+            _text(d, (px(p["fraction"]) - 8, bottom + 4), f"{p['fraction']:.0%}", fill=(90, 90, 90), font=font)
+        _text(d, (right - 120, bottom + 16), "share of training part", fill=(90, 90, 90), font=font)
         for kind, rgb in LEARNING_RGB.items():
             xy = [(px(p["fraction"]), py(p[f"{kind}_error"])) for p in mine if p[f"{kind}_error"] is not None]
             if len(xy) > 1:
@@ -237,14 +306,14 @@ def learning_curve_png(curve: dict) -> bytes:
                 d.line([(x - 3, hi), (x + 3, hi)], fill=LEARNING_RGB["cv"])
         verdict = (curve.get("verdict") or {}).get(key, "")
         for j, line in enumerate(_wrap(d, font, verdict, right - ox - 8)):
-            d.text((ox + 8, bottom + 30 + 12 * j), line, fill=(0, 0, 0), font=font)
+            _text(d, (ox + 8, bottom + 30 + 12 * j), line, fill=(0, 0, 0), font=font)
     return _png(im)
 
 
 def _wrap(d: ImageDraw.ImageDraw, font, text: str, width: float) -> list[str]:
     lines: list[str] = []
     for word in text.split():
-        if lines and d.textlength(lines[-1] + " " + word, font=font) <= width:
+        if lines and _text_len(d, lines[-1] + " " + word, font=font) <= width:
             lines[-1] += " " + word
         else:
             lines.append(word)
@@ -271,29 +340,29 @@ def stress_png(stress: dict[str, dict], cell: int = 22) -> bytes:
                 drops[i, j] = base - f1
     font = ImageFont.load_default()
     probe = ImageDraw.Draw(Image.new("RGB", (1, 1)))
-    label_w = int(max([probe.textlength(k, font=font) for k in keys], default=40)) + 12
-    head_h = int(max([probe.textlength(n, font=font) for n in names], default=40)) + 10
+    label_w = int(max([_text_len(probe, k, font=font) for k in keys], default=40)) + 12
+    head_h = int(max([_text_len(probe, n, font=font) for n in names], default=40)) + 10
     w, h = label_w + cell * len(names) + 10, head_h + cell * len(keys) + 40
     im = Image.new("RGB", (max(w, 320), h), (255, 255, 255))
     d = ImageDraw.Draw(im)
     for j, n in enumerate(names):  # column names written upwards
-        tw = int(probe.textlength(n, font=font)) + 4
+        tw = int(_text_len(probe, n, font=font)) + 4
         txt = Image.new("RGB", (tw, 12), (255, 255, 255))
-        ImageDraw.Draw(txt).text((2, 0), n, fill=(0, 0, 0), font=font)
+        _text(ImageDraw.Draw(txt), (2, 0), n, fill=(0, 0, 0), font=font)
         rot = txt.rotate(90, expand=True)
         im.paste(rot, (label_w + j * cell + (cell - 12) // 2, head_h - 4 - tw))
     top = float(np.nanmax(np.abs(drops))) if np.isfinite(drops).any() else 0.0
     rgb = colorize(np.nan_to_num(drops)) if drops.size else np.zeros((0, 0, 3), np.uint8)
     for i, k in enumerate(keys):
         y = head_h + i * cell
-        d.text((4, y + 5), k, fill=(0, 0, 0), font=font)
+        _text(d, (4, y + 5), k, fill=(0, 0, 0), font=font)
         for j in range(len(names)):
             x = label_w + j * cell
             fill = (200, 200, 200) if np.isnan(drops[i, j]) else tuple(int(v) for v in rgb[i, j])
             d.rectangle([x, y, x + cell - 2, y + cell - 2], fill=fill)
             if stress[keys[i]].get("worst", {}).get("name") == names[j]:
                 d.rectangle([x, y, x + cell - 2, y + cell - 2], outline=(0, 0, 0))
-    d.text((4, head_h + cell * len(keys) + 8),
+    _text(d, (4, head_h + cell * len(keys) + 8),
            f"colour: drop of held-out F1 (amber worse, blue better), scale ±{top:.3f}; outlined: worst",
            fill=(60, 60, 60), font=font)
     return _png(im)

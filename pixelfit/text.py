@@ -100,9 +100,11 @@ FIELDS: list[Field] = [
 COLUMNS: list[Column] = [
     Column("rung", "family-size; (beam) marks a truth table found by a beam search, not by trying every pixel set",
            lambda r: f"{r['family']}-{r['size']}" + (BEAM_MARK if is_beam(r.get("search")) else "")),
-    Column("size", "the family's size axis",
-           lambda r: f"{r['size']} {FAMILIES[r['family']].size_name}" if r["family"] in FAMILIES else str(r["size"])),
-    Column("log2|H|", "log2 of the number of rules in the family's class at this size (finite classes)",
+    Column("size", "the family's size: pixels read, tree depth or hidden units",
+           lambda r: (FAMILIES[r["family"]].size_text(r["size"]) or "-") if r["family"] in FAMILIES
+           else str(r["size"])),
+    Column("log2|H|", "how many different rules the family can express at this size, as a power of two "
+           "(finite classes only): the more there are, the easier one fits the training patches by chance",
            lambda r: log2_text(r["log2_class_size"])),
     Column("params", "parameters of the fitted rule", lambda r: str(r["parameters"])),
     Column("flash B", "bytes of constant tables of the integer-only C export (pixelfit export)",
@@ -115,7 +117,8 @@ COLUMNS: list[Column] = [
     Column("held-out R [95% CI]", "recall on held-out patches with its Wilson interval",
            lambda r: _with_ci(r["test"], "recall")),
     Column("F1", "F1 on held-out patches", lambda r: fmt(r["test"]["f1"])),
-    Column("bound", "upper bound on the true error rate at 95 % confidence",
+    Column("bound", "with 95 % confidence the error rate on new patches is at most this, from the training "
+           "error and the class size alone, without the held-out patches",
            lambda r: "-" if r["bound"] is None else f"{r['bound']['error_upper']:.3f}"),
     Column("spec", "verdict on the spec: threshold chosen on CV scores, judged by the held-out lower bounds",
            lambda r: "-" if not r.get("spec") else r["spec"]["verdict"]),

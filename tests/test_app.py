@@ -2,6 +2,8 @@
 its data, not on pixels (except the one row-major check, which is about pixels by design)."""
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 
@@ -177,10 +179,15 @@ def test_full_flow(qtbot, window, class_folder, tmp_path, monkeypatch, answers):
     assert (rule.operating_threshold, rule.operating_chosen_on) == (pytest.approx(0.35), "held-out")
     assert np.array_equal(rule.predict(s.run_prep.X_test), s.selected.test_scores > s.threshold)
     assert not s.unsaved and str(target) in w.strip.text.text()
-    header = tmp_path / "c" / "lut_2.h"
-    monkeypatch.setattr(QtWidgets.QFileDialog, "getSaveFileName", lambda *a, **k: (str(header), ""))
+    header = tmp_path / "c" / "lut-2.h"
+    offered = []
+    monkeypatch.setattr(QtWidgets.QFileDialog, "getSaveFileName",
+                        lambda *a, **k: offered.append(a[2]) or (str(header), ""))
     w.act_export.trigger()
-    assert header.is_file() and header.with_suffix(".json").is_file()
+    # One naming scheme for a rung's files: the header offered and its rule file are named like the rule.
+    assert Path(offered[0]).name == "lut-2.h" and Path(offered[0]).parent == target.parent
+    assert header.is_file() and (header.parent / "lut-2.json").is_file()
+    assert not (header.parent / "lut_2.json").exists()
     assert "exported" in w.strip.text.text() and not w.strip.error
     assert answers.asked == []
 
@@ -199,7 +206,7 @@ def test_halt_keeps_finished_rungs(qtbot, window, tmp_path):
     qtbot.waitUntil(lambda: not s.running, timeout=30_000)
     assert all(c.isEnabled() for c in locked)
     assert 1 <= len(s.rungs) < s.planned
-    assert "halted" in w.strip.text.text()
+    assert "stopped" in w.strip.text.text()
     assert w.worker is None and w.act_climb.isEnabled()
 
 
@@ -211,7 +218,7 @@ def test_halt_before_the_thread_starts(qtbot, window, class_folder):
     w.act_halt.trigger()
     assert s.running
     qtbot.waitUntil(lambda: not s.running, timeout=5_000)
-    assert s.rungs == [] and "halted: 0 of" in w.strip.text.text()
+    assert s.rungs == [] and "stopped: 0 of" in w.strip.text.text()
     assert w.worker is None and w.act_climb.isEnabled()
 
 
@@ -328,7 +335,7 @@ def test_all_zero_map_has_finite_levels(qtbot):
     qtbot.addWidget(view)
     view.show_map(np.zeros((4, 4), bool))
     assert view.values.dtype == np.float32
-    assert tuple(view.image.getLevels()) == (-1.0, 1.0)
+    assert tuple(view.image.getLevels()) == (0.0, 1.0)  # no negative value: the sequential scale
 
 
 def test_plain_pixelfit_opens_the_gui(monkeypatch):

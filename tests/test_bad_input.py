@@ -191,6 +191,6 @@ def test_apply_with_the_rules_own_classes_needs_no_mapping(tmp_path, class_folde
     capsys.readouterr()
     assert main(["apply", str(tmp_path / "run" / "rules" / "lut-1.json"), str(class_folder)]) == 0
     captured = capsys.readouterr()
-    assert "labels " in captured.err and "scored as unlabelled" not in captured.err
+    assert "labels " in captured.out and "scored as unlabelled" not in captured.out
     s = json.loads((tmp_path / "run" / "summary.json").read_text())
     assert s["dataset"]["positive"] == "spot"

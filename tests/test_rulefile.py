@@ -155,7 +155,23 @@ def test_apply_refuses_wrong_shape_per_file(presplit_folder, tmp_path, capsys):
     Image.fromarray(np.zeros((8, 8), np.uint8)).save(folder / "good.png")
     Image.fromarray(np.zeros((9, 9), np.uint8)).save(folder / "odd.png")
     capsys.readouterr()
-    assert main(["apply", str(out / "rules" / "lut-1.json"), str(folder)]) == 0
+    assert main(["apply", str(out / "rules" / "lut-1.json"), str(folder), "--csv", "-"]) == 0
     captured = capsys.readouterr()
     assert "good.png" in captured.out and "odd.png" not in captured.out
     assert "odd.png: patch is 9x9, expected 8x8" in captured.err
+
+
+def test_apply_prints_the_summary_and_rows_only_when_asked(tmp_path, presplit_folder, capsys):
+    out = tmp_path / "run"
+    assert main(["fit", str(presplit_folder), "--out", str(out), "--families", "lut", "--sizes", "lut=1",
+                 "--folds", "0"]) == 0
+    rule, patches = str(out / "rules" / "lut-1.json"), str(presplit_folder / "test")
+    capsys.readouterr()
+    assert main(["apply", rule, patches]) == 0
+    quiet = capsys.readouterr()
+    assert ".png," not in quiet.out and quiet.err == ""
+    assert "applied lut-1 to" in quiet.out and "--csv" in quiet.out
+    assert main(["apply", rule, patches, "--verbose"]) == 0
+    loud = capsys.readouterr()
+    rows = [line for line in loud.out.splitlines() if ".png," in line]
+    assert len(rows) == int(quiet.out.split(" to ")[1].split()[0]) and "applied lut-1 to" in loud.err

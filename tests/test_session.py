@@ -156,7 +156,7 @@ def test_cancelled_climb_keeps_the_finished_rungs(session, class_folder):
     session.end_run("cancelled")
     assert [r.key for r in session.rungs] == ["constant-0", "lut-1"]
     assert session.events[-1][0] in ("message", "selection")
-    assert any(e == "message" and a[0] == "ladder halted: 2 of 4 rungs finished and kept" for e, a in session.events)
+    assert any(e == "message" and a[0] == "ladder stopped: 2 of 4 rungs finished and kept" for e, a in session.events)
 
 
 def test_nothing_selected_means_nothing_to_show(session, class_folder, tmp_path):

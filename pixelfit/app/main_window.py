@@ -10,7 +10,7 @@ from pathlib import Path
 
 from pixelfit import ladder_process
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets
-from pixelfit.app.session import Session
+from pixelfit.app.session import Session, rule_file_name
 from pixelfit.app.widgets.check_view import DataCheckView
 from pixelfit.app.widgets.checks_view import ChecksView
 from pixelfit.app.widgets.climb_panel import ClimbPanel
@@ -24,6 +24,8 @@ from pixelfit.app.workers import LadderWorker
 APP_NAME = "pixelfit"
 DEMO_SET = "bottle-caps"
 RECENT_KEY = "sources/recent"
+#: The folder the last file was saved to; save dialogs start there.
+SAVE_DIR_KEY = "files/last_save_dir"
 MAX_RECENT = 8
 #: Wait between pressing climb and starting its trainer, so the ladder tab's first paints (up to
 #: about 60 ms here) do not share the CPUs with the child's start.
@@ -167,8 +169,8 @@ class MainWindow(QtWidgets.QMainWindow):
         self.act_open_npz = action("Open .npz file…", self.choose_npz, ["Ctrl+Shift+O"],
                                    "Open patches stored in an .npz array file")
         self.act_climb = action("Climb", self.start_climb, ["Ctrl+R"], "Train the ladder", Pix.SP_MediaPlay)
-        self.act_halt = action("Halt", self.halt_climb, ["Ctrl+.", "Esc"], "Stop the ladder after the current step",
-                               Pix.SP_MediaStop)
+        self.act_halt = action("Stop", self.halt_climb, ["Ctrl+.", "Esc"],
+                               "Stop the ladder after the current step; finished rungs are kept", Pix.SP_MediaStop)
         self.act_save = action("Save rule…", self.choose_rule_path, [Std.Save],
                                "Save the selected rung as a rule file", Pix.SP_DialogSaveButton)
         self.act_export = action("Export C…", self.choose_c_path, ["Ctrl+E"],
@@ -237,7 +239,7 @@ class MainWindow(QtWidgets.QMainWindow):
     def open_path(self, path: str | Path) -> bool:
         """Open a folder or .npz; asks first when trained rungs would be dropped unsaved."""
         if self.session.running:
-            self.session.say("a ladder is running; halt it before opening other patches", True)
+            self.session.say("a ladder is running; stop it before opening other patches", True)
             return False
         if self.session.unsaved and not self.ask(
                 "Drop the trained rungs?", f"{len(self.session.rungs)} trained rungs are not saved as rule files. "
@@ -314,7 +316,7 @@ class MainWindow(QtWidgets.QMainWindow):
     def halt_climb(self) -> None:
         if self.worker is not None:
             self.worker.cancel()
-            self.session.say("halting after the current step…")
+            self.session.say("stopping after the current step…")
 
     def _climb_ended(self, outcome: str, detail: str) -> None:
         w, self.worker = self.worker, None
@@ -337,13 +339,30 @@ class MainWindow(QtWidgets.QMainWindow):
 
     # ---- rule files ---------------------------------------------------------------------------
 
+    def save_dir(self) -> str:
+        """Where save dialogs start: the folder last saved to, else the user's documents folder;
+        never a demo-set folder."""
+        from pixelfit.demo import demo_folders
+
+        last = self.settings.value(SAVE_DIR_KEY, "")
+        if last and Path(str(last)).is_dir():
+            here = Path(str(last)).resolve()
+            if not any(here == d.resolve() or d.resolve() in here.parents for d in demo_folders()):
+                return str(here)
+        docs = QtCore.QStandardPaths.writableLocation(QtCore.QStandardPaths.StandardLocation.DocumentsLocation)
+        return docs if docs and Path(docs).is_dir() else str(Path.home())
+
+    def _ask_save_path(self, title: str, name: str, filter_: str) -> str:
+        path, _ = QtWidgets.QFileDialog.getSaveFileName(self, title, str(Path(self.save_dir()) / name), filter_)
+        if path:
+            self.settings.setValue(SAVE_DIR_KEY, str(Path(path).resolve().parent))
+        return path
+
     def choose_rule_path(self) -> None:
         r = self.session.selected
         if r is None:
             return
-        start = str(Path(self._last_dir()) / f"{r.key}.json")
-        path, _ = QtWidgets.QFileDialog.getSaveFileName(self, f"Save {r.key} as a rule file", start,
-                                                        "Rule files (*.json)")
+        path = self._ask_save_path(f"Save {r.key} as a rule file", rule_file_name(r), "Rule files (*.json)")
         if path:
             self.session.save_selected(path)
 
@@ -351,16 +370,15 @@ class MainWindow(QtWidgets.QMainWindow):
         r = self.session.selected
         if r is None:
             return
-        start = str(Path(self._last_dir()) / f"{r.key.replace('-', '_')}.h")
-        path, _ = QtWidgets.QFileDialog.getSaveFileName(self, f"Export {r.key} as C", start, "C headers (*.h)")
+        path = self._ask_save_path(f"Export {r.key} as C (its rule file {rule_file_name(r)} goes beside it)",
+                                   rule_file_name(r, ".h"), "C headers (*.h)")
         if path:
             self.session.export_selected_c(path)
 
     def choose_report_path(self) -> None:
         if not self.session.rungs:
             return
-        start = str(Path(self._last_dir()) / "report.html")
-        path, _ = QtWidgets.QFileDialog.getSaveFileName(self, "Export the review report", start, "HTML pages (*.html)")
+        path = self._ask_save_path("Export the review report", "report.html", "HTML pages (*.html)")
         if path:
             self.session.export_report(path)
 
@@ -368,7 +386,7 @@ class MainWindow(QtWidgets.QMainWindow):
 
     def closeEvent(self, event: QtGui.QCloseEvent) -> None:
         s = self.session
-        if s.running and not self.ask("Halt the ladder?", "A ladder is still climbing. Halt it and close?"):
+        if s.running and not self.ask("Stop the ladder?", "A ladder is still climbing. Stop it and close?"):
             event.ignore()
             return
         if not s.running and s.unsaved and not self.ask(

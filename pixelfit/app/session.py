@@ -35,6 +35,7 @@ import dataclasses
 import math
 import os
 import tempfile
+import time
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -43,7 +44,7 @@ import numpy as np
 
 from pixelfit.data import FINDINGS, Binarizer, DataCheck, Dataset, grey_histogram, load_dataset
 from pixelfit.errors import PixelfitError
-from pixelfit.evaluate import Spec, apply_spec, detection_metrics
+from pixelfit.evaluate import Spec, apply_spec, detection_metrics, operating_points
 from pixelfit.families import FAMILIES, FAMILY_ORDER, plan_rungs
 from pixelfit.firmware import export_c
 from pixelfit.ladder import Prepared, Rung, conclude, effective_folds, measure_integer, prepare, suspect_labels
@@ -56,7 +57,7 @@ EVENTS = ("dataset", "prep", "gallery", "settings", "run", "progress", "rungs", 
           "map", "spec", "check", "axis", "checks", "message")
 
 #: Per-pixel maps the inspector can show: rung maps first, then maps of the training data.
-MAP_KINDS = {"native": "model's own weights", "permutation": "permutation (held-out)",
+MAP_KINDS = {"native": "the rung's own map", "permutation": "permutation (held-out)",
              "mean_difference": "data: lit-rate difference", "mutual_information": "data: mutual information"}
 
 #: The x axes the ladder plot offers: name -> (label, the rung's number on that axis given the
@@ -104,11 +105,28 @@ def nearest_point(points: list[tuple[str, float, float]], x: float, y: float) ->
     return min(points, key=lambda p: (p[1] - x) ** 2 + (p[2] - y) ** 2)[0]
 
 #: The window's name for each setting a core refusal names in its ``field`` (the labels of the controls).
-CONTROL_LABELS = {"positive": "detect", "binarize": "binarization", "folds": "folds", "max_size": "largest size",
+CONTROL_LABELS = {"positive": "class to find", "binarize": "binarization", "folds": "folds", "max_size": "largest size",
                   "seed": "seed", "test_fraction": "held-out share", "out": "output folder"}
 
 #: A small ladder that trains in seconds on a laptop; the user widens it.
 DEFAULT_FAMILIES = ("constant", "lut", "nb", "logistic", "tree")
+
+
+def duration_text(seconds: float) -> str:
+    """A rough duration in words: '40 s', '3 min', '1 h 10 min'."""
+    s = max(0, int(round(seconds)))
+    if s < 60:
+        return f"{s} s"
+    if s < 3600:
+        return f"{round(s / 60)} min"
+    return f"{s // 3600} h {round(s % 3600 / 60)} min"
+
+
+def map_name(rung: Rung | None, kind: str) -> str:
+    """What a map of ``kind`` shows for ``rung``: the family's own map has a name per family."""
+    if kind == "native" and rung is not None:
+        return FAMILIES[rung.family].map_name or "no map of its own"
+    return MAP_KINDS[kind]
 
 
 @dataclass(frozen=True)
@@ -145,6 +163,7 @@ class Session:
         self.checks: Checks | None = None
         self.running = False
         self.progress_state: tuple[int, int, str] = (0, 0, "")
+        self._run_started: float | None = None  # time.monotonic() when the current run started
         self.run_prep: Prepared | None = None  # the prepared data the current rungs were trained on
         self.run_settings: dict | None = None  # the settings of that run, as `pixelfit fit` records them
         self.planned = 0
@@ -164,6 +183,7 @@ class Session:
         self.saved_paths: list[Path] = []
         self._data_maps: tuple[Prepared, dict[str, np.ndarray]] | None = None  # maps of one prepared set
         self._at_threshold: tuple | None = None  # (rung, threshold, prepared set, metrics) last computed
+        self._reach: tuple | None = None  # (rung, spec, spec_reach()) last computed
 
     # ---- events -------------------------------------------------------------------------------
 
@@ -191,7 +211,7 @@ class Session:
     def open(self, path: str | os.PathLike) -> bool:
         """Import ``path``; on bad input the error becomes a message and the old state stays."""
         if self.running:
-            self.say("a ladder is running; halt it before opening other patches", True)
+            self.say("a ladder is running; stop it before opening other patches", True)
             return False
         try:
             ds = load_dataset(path)
@@ -202,11 +222,15 @@ class Session:
             self.say(f"{path}: cannot read ({exc.strerror or exc})", True)
             return False
         self.dataset = ds
+        self.prep = None  # the old patches' binarized set must not meet the new patches
         self.positive = None
         self.gallery_class = None
         self._clear_rungs()
+        self.progress_state = (0, 0, "")  # nothing climbed on these patches yet
+        self.planned = 0
         self._emit("dataset")
         self._rebuild_prep()
+        self._emit("progress")
         note = f"; skipped {len(ds.skipped)} file(s)" if ds.skipped else ""
         self.say(f"opened {ds.source}: {len(ds)} patches of {ds.shape[0]}x{ds.shape[1]}{note}")
         return True
@@ -347,6 +371,21 @@ class Session:
             raise PixelfitError("no rung to train: the largest size leaves every family empty")
         return rungs
 
+    def plan_text(self) -> str:
+        """The plan in words, per family with what its size counts: 'lut 1, 2, 3 pixels; tree depth 1, 2'."""
+        by_family: dict[str, list[int]] = {}
+        for fam, size in self.plan():
+            by_family.setdefault(fam, []).append(size)
+        parts = []
+        for fam, sizes in by_family.items():
+            f = FAMILIES[fam]
+            if f.fixed_size:
+                parts.append(fam)
+                continue
+            parts.append(f"{fam} {f.sizes_text(sizes)}")
+        n = sum(len(v) for v in by_family.values())
+        return f"{n} rung{'s' if n != 1 else ''} to train: " + "; ".join(parts)
+
     def start_run(self) -> RunSpec | None:
         """Begin a run: the previous rungs are replaced. Returns what the worker needs, or None."""
         if self.running:
@@ -368,6 +407,7 @@ class Session:
         self.planned = len(plan)
         self.running = True
         self.progress_state = (0, 0, "starting")
+        self._run_started = time.monotonic()
         self._emit("run")
         self.say(f"climbing {len(plan)} rungs on {prep.binarizer.describe()} patches")
         return RunSpec(prep, plan, self.folds, self.seed, self.scheduler, CheckSettings(self.replicates, seed=self.seed),
@@ -376,6 +416,15 @@ class Session:
     def report_progress(self, done: int, total: int, message: str) -> None:
         self.progress_state = (done, total, message)
         self._emit("progress")
+
+    def time_left(self, now: float | None = None) -> float | None:
+        """Seconds the running ladder still needs, estimated from the time its finished steps
+        took (their mean pace times the steps left); None before the first step or after the run."""
+        done, total, _ = self.progress_state
+        if not self.running or self._run_started is None or done <= 0 or total <= done:
+            return None
+        elapsed = (time.monotonic() if now is None else now) - self._run_started
+        return elapsed / done * (total - done)
 
     def add_rung(self, rung: Rung) -> None:
         """A finished rung from the worker; the recommendation is renewed with every rung.
@@ -426,7 +475,7 @@ class Session:
             rec = f"; recommended {self.recommended.key}" if self.recommended else ""
             self.say(f"ladder finished: {n} rungs{rec}")
         elif outcome == "cancelled":
-            self.say(f"ladder halted: {n} of {self.planned} rungs finished and kept")
+            self.say(f"ladder stopped: {n} of {self.planned} rungs finished and kept")
         else:
             self.say(f"ladder failed after {n} rungs: {detail}", True)
         if self.recommended is not None and not self._user_selected:
@@ -581,10 +630,34 @@ class Session:
         r = self.selected
         return None if r is None or r.spec is None else r.spec
 
+    def spec_reach(self) -> dict | None:
+        """Whether the selected rung reaches the spec's targets at some threshold on the scores
+        its threshold is chosen on (CV, else training); None without a spec or scores.
+
+        ``{"reached", "best_precision", "recall_at_best"}``: the best precision any threshold
+        gives there, and the highest recall at that precision (None each when no threshold calls
+        a patch positive).
+        """
+        r = self.selected
+        if r is None or r.spec is None or self.spec is None or r.choice_scores is None or self.run_prep is None:
+            return None
+        if self._reach is not None and self._reach[0] is r and self._reach[1] == self.spec:
+            return dict(self._reach[2])  # asked on every move of the threshold
+        points = operating_points(self.run_prep.y_train, r.choice_scores)
+        targets = self.spec.targets
+        reached = any(all(pt[k] >= v for k, v in targets.items()) for pt in points)
+        best = max(points, key=lambda pt: (pt["precision"], pt["recall"]), default=None)
+        out = {"reached": reached, "best_precision": None if best is None else best["precision"],
+               "recall_at_best": None if best is None else best["recall"]}
+        self._reach = (r, self.spec, out)
+        return dict(out)
+
     def move_to_spec(self) -> None:
-        """Set the selected rung's threshold to the one chosen for the spec (on CV, not held-out)."""
+        """Set the selected rung's threshold to the one chosen for the spec (on CV, not held-out);
+        nothing when no threshold reaches the targets there."""
         pt = self.target_point()
-        if pt is not None:
+        reach = self.spec_reach()
+        if pt is not None and (reach is None or reach["reached"]):
             self.set_threshold(pt["threshold"], pt["chosen_on"])
 
     def misses(self) -> tuple[np.ndarray, np.ndarray]:
@@ -610,8 +683,10 @@ class Session:
             return None, "no rung selected"
         values = r.importance.get(self.map_kind)
         if values is None:
-            return None, f"{r.key} has no {MAP_KINDS[self.map_kind]} map"
-        return values, f"{r.key}: {MAP_KINDS[self.map_kind]}"
+            if self.map_kind == "native":
+                return None, f"{r.key}: a {r.family} rung has no per-pixel map of its own; try permutation"
+            return None, f"{r.key}: no {MAP_KINDS[self.map_kind]} map"
+        return values, f"{r.key}: {map_name(r, self.map_kind)}"
 
     # ---- saving -------------------------------------------------------------------------------
 
@@ -643,11 +718,15 @@ class Session:
         return None
 
     def export_selected_c(self, header_path: str | os.PathLike) -> tuple[Path, Path] | None:
-        """Save the selected rung beside ``header_path`` (same stem, .json) and export C from it."""
+        """Save the selected rung beside ``header_path`` as ``KEY.json`` (the name *Save rule…*
+        offers) and export C from it."""
         header_path = Path(header_path)
         r = self.selected
-        saved = self.save_selected(header_path.with_suffix(".json"))
-        if saved is None or r is None:
+        if r is None:
+            self.say("select a rung to export first", True)
+            return None
+        saved = self.save_selected(header_path.parent / rule_file_name(r))
+        if saved is None:
             return None
         written = self._write(header_path, lambda: export_c(load_rule(saved), header_path))
         if written is None:
@@ -714,6 +793,11 @@ class Session:
         if written is not None:
             self.say(f"wrote the review page to {written}")
         return written
+
+
+def rule_file_name(rung: Rung, suffix: str = ".json") -> str:
+    """The one file name of a rung's files: ``tree-4.json``, ``tree-4.h``."""
+    return f"{rung.key}{suffix}"
 
 
 def family_names() -> list[tuple[str, str]]:

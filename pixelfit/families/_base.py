@@ -261,6 +261,23 @@ class Family:
     fixed_size: bool = False
     #: the size counts pixels, so it cannot exceed the pixels of a patch
     sized_in_pixels: bool = False
+    #: the family and its size in words; ``{n}`` is replaced by :meth:`size_text`
+    title_format: str = "{n}"
+    #: what the family's own per-pixel map shows (``native_importance``); None where it has none
+    map_name: str | None = None
+
+    def size_text(self, size: int) -> str:
+        """The size in words: '1 pixel', '3 pixels', '8 hidden units'; '' for a family without a size."""
+        unit = self.size_name[:-1] if size == 1 and self.size_name.endswith("s") else self.size_name
+        return f"{size} {unit}"
+
+    def sizes_text(self, sizes: list[int]) -> str:
+        """Several sizes in words: '1, 2, 4 pixels'."""
+        return f"{', '.join(map(str, sizes))} {self.size_name}"
+
+    def title(self, size: int) -> str:
+        """The rung in words, such as 'decision tree of depth 4'."""
+        return self.title_format.format(n=self.size_text(size))
 
     # -- the trained side (scikit-learn is imported inside these methods only) ----------------
 

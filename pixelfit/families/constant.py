@@ -11,6 +11,10 @@ class ConstantFamily(Family):
     name = "constant"
     description = "always the training majority"
     size_name = "size"
+    title_format = "always the training majority"
+
+    def size_text(self, size):
+        return ""
     scored = False
     fixed_size = True
 

@@ -15,6 +15,8 @@ class LogisticFamily(Family):
     name = "logistic"
     description = "L1 logistic regression with k non-zero pixel weights"
     size_name = "pixels"
+    title_format = "L1 logistic regression with non-zero weights on {n}"
+    map_name = "weight of each pixel"
     sized_in_pixels = True
 
     def default_sizes(self, n_pixels):

@@ -15,6 +15,8 @@ class LutFamily(Family):
     name = "lut"
     description = "truth table over the k best pixels"
     size_name = "pixels"
+    title_format = "truth table over the best {n}"
+    map_name = "rise in training error without each pixel"
     sized_in_pixels = True
 
     def default_sizes(self, n_pixels):

@@ -14,6 +14,7 @@ class MemorizeFamily(Family):
     name = "memorize"
     description = "truth table over the whole patch"
     size_name = "pixels"
+    title_format = "truth table over the whole patch ({n})"
     fixed_size = True
 
     def default_sizes(self, n_pixels):

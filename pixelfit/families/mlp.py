@@ -36,6 +36,7 @@ class MlpFamily(Family):
     name = "mlp"
     description = "one hidden layer of h units"
     size_name = "hidden units"
+    title_format = "neural network with one hidden layer of {n}"
 
     def default_sizes(self, n_pixels):
         return [1, 2, 4, 8, 16, 32, 64]

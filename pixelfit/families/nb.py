@@ -23,6 +23,8 @@ class NaiveBayesFamily(Family):
     name = "nb"
     description = "Bernoulli naive Bayes on the k most informative pixels"
     size_name = "pixels"
+    title_format = "Bernoulli naive Bayes on the most informative {n}"
+    map_name = "log-odds weight of each lit pixel"
     sized_in_pixels = True
 
     def default_sizes(self, n_pixels):

@@ -12,6 +12,14 @@ class TreeFamily(Family):
     name = "tree"
     description = "decision tree of depth d"
     size_name = "depth"
+    title_format = "decision tree of {n}"
+    map_name = "impurity decrease from splits on each pixel"
+
+    def size_text(self, size):
+        return f"depth {size}"
+
+    def sizes_text(self, sizes):
+        return f"depth {', '.join(map(str, sizes))}"
 
     def default_sizes(self, n_pixels):
         return list(range(1, 9))

@@ -1,9 +1,9 @@
-"""Climb settings: which families, how large, how many folds; the spec; the climb and halt buttons."""
+"""Climb settings: which families, how large, how many folds; the spec; the climb and stop buttons."""
 
 from __future__ import annotations
 
 from pixelfit.app._qt import QtCore, QtWidgets
-from pixelfit.app.session import Session, family_names
+from pixelfit.app.session import Session, duration_text, family_names
 from pixelfit.app.widgets import Listens, Throttled
 from pixelfit.errors import PixelfitError
 
@@ -28,7 +28,8 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
         self.max_size = QtWidgets.QSpinBox()
         self.max_size.setRange(0, 4096)
         self.max_size.setSpecialValueText("no cap")
-        self.max_size.setToolTip("Largest size on every family's axis (pixels, depth or hidden units)")
+        self.max_size.setToolTip("Largest size on every family's own axis: pixels read (lut, nb, logistic), "
+                                 "depth (tree) or hidden units (mlp); the line below lists the sizes it gives")
         self.folds = QtWidgets.QSpinBox()
         self.folds.setRange(0, 20)
         self.folds.setSpecialValueText("off")
@@ -152,8 +153,7 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
         self.scheduler.setEnabled(not s.running)
         if not s.running:
             try:
-                n = len(s.plan())
-                self.plan_label.setText(f"{n} rung{'s' if n != 1 else ''} to train")
+                self.plan_label.setText(s.plan_text())
             except PixelfitError as exc:
                 self.plan_label.setText(str(exc))
         if s.running:
@@ -164,6 +164,11 @@ class ClimbPanel(Listens, QtWidgets.QGroupBox):
 
     def _show_progress(self) -> None:
         done, total, message = self.session.progress_state
+        left = self.session.time_left()
+        self.bar.setFormat("%p %" + ("" if left is None else f" — about {duration_text(left)} left"))
+        if not total and not self.session.running:  # a new data set: nothing climbed on it yet
+            self.bar.setRange(0, 1)
+            self.bar.setValue(0)
         if total:
             # QProgressBar.setValue repaints at once, and a synchronous repaint also paints every
             # other dirty widget of the window (the plot and table a rung has just changed) in

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
-from pixelfit.app.images import enlarged_pixmap, signed_colormap, symmetric_levels
-from pixelfit.app.session import MAP_KINDS, Session
+from pixelfit.app.images import gray_qimage, map_scale, side_by_side, signed_colormap
+from pixelfit.app.session import MAP_KINDS, Session, map_name
 from pixelfit.app.widgets import Listens, Throttled
 from pixelfit.families import FAMILIES
 
@@ -49,16 +49,20 @@ class PixelMap(pg.GraphicsLayoutWidget):
         self.bar = pg.ColorBarItem(colorMap=signed_colormap(), interactive=False, width=14)
         self.bar.setImageItem(self.image, insert_in=self.plot)
         self.values: np.ndarray | None = None
+        self.bar.setVisible(False)
 
     def show_map(self, values: np.ndarray | None, pixels: list[int] | None = None) -> None:
         if values is None:
             self.values = None
             self.image.clear()
             self.outline.setData([])
+            self.bar.setVisible(False)  # no colour bar left from an earlier map
             return
         # float32 with explicit levels: boolean and all-zero maps break automatic levels.
         self.values = np.ascontiguousarray(values, dtype=np.float32)
-        lo, hi = symmetric_levels(self.values)
+        cmap, (lo, hi) = map_scale(self.values)
+        self.bar.setColorMap(cmap)
+        self.bar.setVisible(True)
         self.image.setImage(self.values, autoLevels=False, levels=(lo, hi))
         self.bar.setLevels((lo, hi))
         h, w = self.values.shape
@@ -145,6 +149,7 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self.kind = QtWidgets.QComboBox()
         for k, label in MAP_KINDS.items():
             self.kind.addItem(label, k)
+        self.kind.setSizeAdjustPolicy(QtWidgets.QComboBox.SizeAdjustPolicy.AdjustToContents)  # per-family names
         self.map_caption = QtWidgets.QLabel("")
         self.pixmap = PixelMap()
         self.pixmap.setMinimumSize(220, 220)
@@ -273,7 +278,7 @@ class RungInspector(Listens, QtWidgets.QWidget):
         s = self.session
         if s.prep is not None and s.run_prep is not None and s.prep.binarizer != s.run_prep.binarizer:
             notes += f"<br><i>trained on {s.run_prep.binarizer.describe()} bits, not the current pixel prep</i>"
-        self.title.setText(f"<b>{r.key}</b>{mark}: {fam.description}, {fam.size_name} {r.size}; "
+        self.title.setText(f"<b>{r.key}</b>{mark}: {fam.title(r.size)}; "
                            f"{r.figures['parameters']} parameters{notes}")
 
     def refresh(self) -> None:
@@ -283,7 +288,6 @@ class RungInspector(Listens, QtWidgets.QWidget):
         scored = r is not None and r.scored
         for w in (self.slider, self.slider_value):
             w.setEnabled(scored)
-        self.go_target.setEnabled(r is not None and r.spec is not None)
         self._put_threshold()
         self._show_map()
         self._fill_static_rows()
@@ -341,7 +345,8 @@ class RungInspector(Listens, QtWidgets.QWidget):
         s = self.session
         r = s.selected
         self.chosen_label.setText("" if r is None else s.threshold_chosen_on)
-        self.go_target.setEnabled(r is not None and r.spec is not None)
+        reach = s.spec_reach()
+        self.go_target.setEnabled(r is not None and r.spec is not None and (reach is None or reach["reached"]))
         if r is None:
             self.target_label.setText("")
             return
@@ -352,6 +357,15 @@ class RungInspector(Listens, QtWidgets.QWidget):
 
         def f(v):
             return "–" if v is None else f"{v:.3f}"
+        if reach is not None and not reach["reached"]:
+            on = "CV" if r.chosen_on == "cv" else "training"
+            goal = " and ".join(f"{k} ≥ {v:g}" for k, v in (s.spec.targets if s.spec else {}).items())
+            best = ("no threshold calls any patch positive" if reach["best_precision"] is None else
+                    f"the best precision any threshold gives is {f(reach['best_precision'])}, "
+                    f"at recall {f(reach['recall_at_best'])}")
+            self.target_label.setText(f"no threshold of {r.key} reaches {goal} on its {on} "
+                                      f"scores: {best}. Try a larger rung or a lower target.")
+            return
         self.target_label.setText(
             f"spec: threshold {e['threshold']:.3f} chosen on {e['chosen_on']} (there precision {f(e['cv']['precision'])}, "
             f"recall {f(e['cv']['recall'])}); held-out tp {t['tp']}, fp {t['fp']}, fn {t['fn']}, tn {t['tn']}: "
@@ -367,12 +381,16 @@ class RungInspector(Listens, QtWidgets.QWidget):
             caption += f"  (range {float(np.min(values)):.3g} … {float(np.max(values)):.3g}; outlined: pixels read)" \
                 if pixels else f"  (range {float(np.min(values)):.3g} … {float(np.max(values)):.3g})"
         self.map_caption.setText(caption)
+        self.kind.setItemText(self.kind.findData("native"), map_name(s.selected, "native")
+                              if s.selected is not None else MAP_KINDS["native"])
         self.kind.setCurrentIndex(self.kind.findData(s.map_kind))
 
     def _show_misses(self) -> None:
         s = self.session
         fp, fn = s.misses()
         ds = s.run_prep.dataset if s.run_prep is not None else None
+        test_rows = np.flatnonzero(s.run_prep.test_mask) if s.run_prep is not None else np.zeros(0, np.intp)
+        r = s.selected
         for lst, label, rows, what in ((self.fp_list, self.fp_label, fp, "false positives"),
                                        (self.fn_list, self.fn_label, fn, "false negatives")):
             lst.clear()
@@ -381,15 +399,20 @@ class RungInspector(Listens, QtWidgets.QWidget):
             label.setText(f"held-out {what}: {len(rows)}{more}")
             if ds is None:
                 continue
-            lst.setIconSize(QtCore.QSize(ds.shape[1] * 3, ds.shape[0] * 3))
-            if self._thumbs[0] is not ds or len(self._thumbs[1]) > MAX_THUMBS:
-                self._thumbs = (ds, {})
+            lst.setIconSize(QtCore.QSize(ds.shape[1] * 6 + 2, ds.shape[0] * 3))
+            # grey | the bits the rung was trained on, kept per (data, binarization)
+            if self._thumbs[0] is not s.run_prep or len(self._thumbs[1]) > MAX_THUMBS:
+                self._thumbs = (s.run_prep, {})
             thumbs = self._thumbs[1]
             for i in shown:
                 pix = thumbs.get(int(i))
                 if pix is None:
-                    pix = thumbs[int(i)] = enlarged_pixmap(ds.images[i], 3)
+                    bits = s.run_prep.binarizer.transform(ds.images[i:i + 1])[0]
+                    pix = thumbs[int(i)] = QtGui.QPixmap.fromImage(gray_qimage(side_by_side(ds.images[i], bits, 3)))
                 item = QtWidgets.QListWidgetItem(pix, "")
-                item.setToolTip(f"{ds.names[i]}: {ds.labels[i]}")
+                score = None if r is None or r.test_scores is None else \
+                    float(r.test_scores[int(np.searchsorted(test_rows, i))])
+                item.setToolTip(f"{ds.names[i]}: labelled {ds.labels[i]}"
+                                + ("" if score is None else f"; score {score:.3f} (threshold {s.threshold:.3f})"))
                 item.setData(QtCore.Qt.ItemDataRole.UserRole, int(i))
                 lst.addItem(item)

@@ -11,15 +11,13 @@ from pixelfit.errors import PixelfitError
 from pixelfit.families import FAMILY_ORDER
 from pixelfit.ladder import Rung
 from pixelfit.models import BEAM_NOTE, is_beam
+from pixelfit.plots import CURVE_LABELS as KIND_LABEL
+from pixelfit.plots import FAMILY_RGB
 from pixelfit.text import COLUMNS, rung_cells
 
-#: One colour per family, so a family keeps its colour in the plot and the table.
-FAMILY_RGB = {"constant": (110, 110, 110), "lut": (46, 92, 160), "nb": (40, 150, 70), "logistic": (150, 60, 150),
-              "tree": (214, 120, 16), "mlp": (190, 50, 50), "memorize": (20, 150, 160)}
-#: Pen style of each curve kind.
+#: Pen style of each curve kind (pixelfit.plots.CURVE_DASHES draws the same in ladder.png).
 KIND_STYLE = {"train": QtCore.Qt.PenStyle.DashLine, "cv": QtCore.Qt.PenStyle.SolidLine,
               "test": QtCore.Qt.PenStyle.DotLine, "bound": QtCore.Qt.PenStyle.DashDotLine}
-KIND_LABEL = {"train": "train error", "cv": "CV error", "test": "held-out error", "bound": "bound (95 %)"}
 #: Least time between two redraws of the error plot, and between two fits of the table's column
 #: widths to their contents, while rungs arrive; see benchmarks/bench_gui_stall.py.
 PLOT_INTERVAL_MS = 500
@@ -150,6 +148,7 @@ class LadderTable(Listens, QtWidgets.QTableView):
         self.listen(session, "rungs", self._rungs_changed)
         self.listen(session, "selection", self._show_selection)
         self.listen(session, "run", self._fit_columns.flush)
+        self.resizeColumnsToContents()  # the empty table shows whole column titles
 
     def _row_chosen(self, current: QtCore.QModelIndex, _previous) -> None:
         rows = self.table_model.rows
@@ -159,9 +158,28 @@ class LadderTable(Listens, QtWidgets.QTableView):
                 self.session.select(key)
 
     def _rungs_changed(self) -> None:
-        self.table_model.follow()
+        before = len(self.table_model.rows)
+        if self.table_model.follow():
+            before = 0
+            if not self.table_model.rows:
+                self.resizeColumnsToContents()
+        self._widen_for(before)
         self._fit_columns.request()
         self._show_selection()
+
+    def _widen_for(self, first_row: int) -> None:
+        """Widen at once any column too narrow for the rows from ``first_row`` on, so no cell is
+        cut short ("3 …") while the throttled fit of all columns waits its turn."""
+        m = self.table_model
+        metrics = QtGui.QFontMetrics(self.font())
+        bold = QtGui.QFont(self.font())
+        bold.setBold(True)
+        bold_metrics = QtGui.QFontMetrics(bold)
+        for c in range(m.columnCount()):
+            need = max(((bold_metrics if m.rows[r].recommended else metrics).horizontalAdvance(m.item(r, c).text())
+                        for r in range(first_row, m.rowCount())), default=0) + 14
+            if need > self.columnWidth(c):
+                self.setColumnWidth(c, need)
 
     def _show_selection(self) -> None:
         sel = self.session.selected
@@ -249,9 +267,19 @@ class ErrorPlot(Listens, pg.PlotWidget):
         # the cache is redrawn whenever the axis changes.
         for side in ("left", "bottom"):
             pi.getAxis(side).setCacheMode(QtWidgets.QGraphicsItem.CacheMode.DeviceCoordinateCache)
-        self.legend = pi.addLegend(offset=(-10, 10), labelTextSize="8pt", colCount=2)
+        # The legend sits beside the plot, never over its curves; clicking an entry shows or hides
+        # its curves (a line style: that kind in every family; a family: all its curves).
+        self.legend = pg.LegendItem(labelTextSize="8pt", colCount=1, verSpacing=-4)
+        pi.layout.addItem(self.legend, 2, 3)
+        pi.layout.setColumnStretchFactor(3, 0)
+        self.legend.sigSampleClicked.connect(self._legend_clicked)
+        self.hidden: set[str] = set()  # families and kinds switched off from the legend
+        self._legend_keys: dict[int, str] = {}  # id of a legend sample's item -> the family or kind it stands for
+        self._family_entries: dict[str, pg.PlotCurveItem] = {}
         for kind, style in KIND_STYLE.items():  # line style keys, in black, before the family colours
-            self.legend.addItem(pg.PlotCurveItem(pen=pg.mkPen((0, 0, 0), width=1.5, style=style)), KIND_LABEL[kind])
+            key_item = pg.PlotCurveItem(pen=pg.mkPen((0, 0, 0), width=1.5, style=style))
+            self._legend_keys[id(key_item)] = kind
+            self.legend.addItem(key_item, KIND_LABEL[kind])
         self.points = pg.ScatterPlotItem(size=9, hoverable=True, tip=None)
         self.points.sigClicked.connect(self._clicked)
         self.marker = pg.ScatterPlotItem(size=18, symbol="o", pen=pg.mkPen((0, 0, 0), width=2), brush=None)
@@ -299,9 +327,33 @@ class ErrorPlot(Listens, pg.PlotWidget):
             item = pg.PlotCurveItem(pen=pg.mkPen(rgb, width=2.5 if kind == "cv" else 1.5, style=KIND_STYLE[kind]))
             self.getPlotItem().addItem(item)
             self._curves[(family, kind)] = item
-            if kind == "cv":
-                self.legend.addItem(item, family)
+            item.setVisible(family not in self.hidden and kind not in self.hidden)
+            if kind == "cv":  # the family's entry: a sample of its own, so switching it off leaves the curves be
+                entry = pg.PlotCurveItem(pen=pg.mkPen(rgb, width=2.5))
+                self._legend_keys[id(entry)] = family
+                self._family_entries[family] = entry
+                self.legend.addItem(entry, family)
+                self.set_shown()
         return item
+
+    def _legend_clicked(self, item) -> None:
+        """An entry of the legend was clicked (its sample has just toggled ``item``): switch the
+        family or the kind it stands for on or off, and show every curve accordingly."""
+        key = self._legend_keys.get(id(item))
+        if key is None:
+            return
+        self.hidden ^= {key}
+        self.set_shown()
+
+    def set_shown(self, hidden: set[str] | None = None) -> None:
+        """Show every curve whose family and kind are not in ``hidden`` (default: the current set)."""
+        if hidden is not None:
+            self.hidden = set(hidden)
+        for (fam, kind), curve in self._curves.items():
+            curve.setVisible(fam not in self.hidden and kind not in self.hidden)
+        for sample, _label in self.legend.items:  # a switched-off entry is drawn faded
+            sample.item.setVisible(self._legend_keys.get(id(sample.item)) not in self.hidden)
+            sample.update()
 
     def _run_changed(self) -> None:
         if self.session.running:
@@ -314,7 +366,9 @@ class ErrorPlot(Listens, pg.PlotWidget):
             for (fam, kind), item in list(self._curves.items()):
                 if fam not in families:
                     if kind == "cv":
-                        self.legend.removeItem(item)
+                        entry = self._family_entries.pop(fam)
+                        self.legend.removeItem(entry)
+                        self._legend_keys.pop(id(entry), None)
                     self.getPlotItem().removeItem(item)
                     del self._curves[(fam, kind)]
                     self._drawn.pop((fam, kind), None)

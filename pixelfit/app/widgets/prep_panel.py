@@ -38,7 +38,8 @@ class PixelPrep(Listens, QtWidgets.QGroupBox):
         self.counts_curve = pg.PlotDataItem(stepMode="center", fillLevel=0, brush=(120, 120, 120, 120),
                                             pen=pg.mkPen((80, 80, 80)))
         self.patch_curve = pg.PlotDataItem(stepMode="center", pen=pg.mkPen((214, 120, 16), width=2))
-        self.line = pg.InfiniteLine(angle=90, movable=False, pen=pg.mkPen((46, 92, 160), width=2))
+        self.line = pg.InfiniteLine(angle=90, movable=False, pen=pg.mkPen((46, 92, 160), width=2),
+                                    hoverPen=pg.mkPen((214, 120, 16), width=3))
         for item in (self.counts_curve, self.patch_curve, self.line):
             self.hist.addItem(item)
         self.hist.setXRange(0, 256, padding=0.01)
@@ -54,6 +55,7 @@ class PixelPrep(Listens, QtWidgets.QGroupBox):
         self.level.valueChanged.connect(self._write_back)
         self.invert.toggled.connect(self._write_back)
         self.line.sigPositionChanged.connect(self._line_moved)
+        self.line.sigPositionChangeFinished.connect(self._line_released)
         self.listen(session, "prep", self.refresh)
         # A run starting or ending only locks or frees the controls: the histogram stays as it is.
         self.listen(session, "run", self._enable)
@@ -69,6 +71,11 @@ class PixelPrep(Listens, QtWidgets.QGroupBox):
             level = int(round(line.value()))
             if level != self.level.value():
                 self.level.setValue(max(0, min(256, level)))  # writes back through valueChanged
+
+    def _line_released(self, line) -> None:
+        """The drag ended: back to the line's own colour (the pointer may still be over it,
+        and offscreen or after a rebuild no hover-leave comes to reset it)."""
+        line.setMouseHover(False)
 
     def _enable(self) -> None:
         s = self.session

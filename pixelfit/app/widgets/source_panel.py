@@ -10,7 +10,7 @@ from pixelfit.app.widgets import Listens
 
 
 class ImportReport(Listens, QtWidgets.QGroupBox):
-    """Source, layout, patch shape, counts per class, the class to detect, skipped files."""
+    """Source, layout, patch shape, counts per class, the class to find, skipped files."""
 
     def __init__(self, session: Session, parent: QtWidgets.QWidget | None = None):
         super().__init__("Import report", parent)
@@ -20,7 +20,8 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
         self.summary.setWordWrap(True)
         self.summary.setTextInteractionFlags(QtCore.Qt.TextInteractionFlag.TextSelectableByMouse)
         self.positive = QtWidgets.QComboBox()
-        self.positive.setToolTip("The class the rule must detect; the others form its negative class")
+        self.positive.setToolTip("The class the rule must find (its positive class); every other class "
+                                 "is what it must pass over")
         # The badge: shown only when the data check found something.
         self.check_badge = QtWidgets.QLabel("")
         self.check_badge.setWordWrap(True)
@@ -28,13 +29,23 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
                                        "padding: 3px; }")
         self.check_badge.setVisible(False)
         self.skipped_label = QtWidgets.QLabel("")
+        # Every skipped file with its whole reason: the list scrolls both ways, each line carries
+        # its reason as a tooltip, and "show all" opens the list in a window of its own.
         self.skipped = QtWidgets.QListWidget()
         self.skipped.setMaximumHeight(90)
+        self.skipped.setHorizontalScrollBarPolicy(QtCore.Qt.ScrollBarPolicy.ScrollBarAsNeeded)
+        self.skipped.setTextElideMode(QtCore.Qt.TextElideMode.ElideNone)
+        self.show_skipped = QtWidgets.QPushButton("show all…")
+        self.show_skipped.setToolTip("Open the whole list of skipped files and why, to read or copy")
+        self.show_skipped.clicked.connect(self.open_skipped_list)
         lay = QtWidgets.QFormLayout(self)
         lay.addRow(self.summary)
         lay.addRow(self.check_badge)
-        lay.addRow("detect", self.positive)
-        lay.addRow(self.skipped_label)
+        lay.addRow("class to find", self.positive)
+        skipped_row = QtWidgets.QHBoxLayout()
+        skipped_row.addWidget(self.skipped_label, 1)
+        skipped_row.addWidget(self.show_skipped)
+        lay.addRow(skipped_row)
         lay.addRow(self.skipped)
         self.positive.activated.connect(self._positive_chosen)
         self.listen(session, "dataset", self.refresh)
@@ -82,10 +93,11 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
             self.positive.blockSignals(False)
             self.skipped_label.setText("")
             self.skipped.setVisible(False)
+            self.show_skipped.setVisible(False)
             return
         h, w = ds.shape
         rows = "".join(f"<tr><td>{html.escape(c)}</td><td align='right'>&nbsp;{n}</td>"
-                       f"<td>{'&nbsp;&larr; detect' if c == s.positive else ''}</td></tr>"
+                       f"<td>{'&nbsp;&larr; to find' if c == s.positive else ''}</td></tr>"
                        for c, n in ds.counts.items())
         split = ""
         if s.prep is not None:
@@ -103,5 +115,30 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
         n = len(ds.skipped)
         self.skipped_label.setText(f"skipped {n} file(s):" if n else "skipped nothing")
         self.skipped.setVisible(bool(n))
+        self.show_skipped.setVisible(bool(n))
         for sk in ds.skipped:
-            self.skipped.addItem(f"{sk.path}: {sk.reason}")
+            item = QtWidgets.QListWidgetItem(f"{sk.path}: {sk.reason}")
+            item.setToolTip(f"{sk.path}: {sk.reason}")
+            self.skipped.addItem(item)
+
+    def skipped_text(self) -> str:
+        """Every skipped file and why, one a line."""
+        ds = self.session.dataset
+        return "" if ds is None else "\n".join(f"{sk.path}: {sk.reason}" for sk in ds.skipped)
+
+    def open_skipped_list(self) -> QtWidgets.QDialog:
+        """A window with the whole list of skipped files, selectable; returns it (shown, not modal)."""
+        box = QtWidgets.QDialog(self)
+        box.setWindowTitle("Skipped files")
+        text = QtWidgets.QPlainTextEdit(self.skipped_text())
+        text.setReadOnly(True)
+        text.setLineWrapMode(QtWidgets.QPlainTextEdit.LineWrapMode.WidgetWidth)
+        close = QtWidgets.QDialogButtonBox(QtWidgets.QDialogButtonBox.StandardButton.Close)
+        close.rejected.connect(box.close)
+        lay = QtWidgets.QVBoxLayout(box)
+        lay.addWidget(text)
+        lay.addWidget(close)
+        box.resize(640, 360)
+        box.setAttribute(QtCore.Qt.WidgetAttribute.WA_DeleteOnClose)
+        box.show()
+        return box
