@@ -1,12 +1,13 @@
-"""Run the README walkthrough's commands and put what they print into the README.
+"""Run the commands the READMEs show and put what they print into them.
 
-    python assets/readme_walkthrough.py            # rewrite README.md's walkthrough outputs
+    python assets/readme_walkthrough.py            # rewrite the outputs in README.md and the demo sets' READMEs
     python assets/readme_walkthrough.py --check    # exit 1 (and show the difference) when they differ
 
-Each output block in README.md follows a marker line ``<!-- walkthrough:NAME -->``; the block is
-the fenced ``text`` block after it. The commands run as ``python -m pixelfit ...`` in a scratch
-folder where ``demo_sets`` points at the repository's demo sets, so the paths read as a newcomer's
-would. What changes from run to run (creation times) is written as ``...``; long outputs are
+Each output block follows a marker line ``<!-- walkthrough:NAME -->``; the block is the fenced
+block after it. The main README's walkthrough runs the commands of its steps; each demo set's
+README shows the ladder that the default ``pixelfit fit`` prints for it. The commands run as
+``python -m pixelfit ...`` in a scratch folder where ``demo_sets`` points at the repository's demo
+sets, so the paths read as a newcomer's would. What changes from run to run (creation times) is written as ``...``; long outputs are
 shortened where a block says so, with ``...`` where lines were left out.
 """
 
@@ -74,6 +75,15 @@ class Block:
     name: str
     commands: list[str]
     shorten: list[Callable[[list[str]], list[str]]] = field(default_factory=list)
+    doc: Path = README
+    echo: bool = True  # print each command with a "$ " before its output
+
+
+def _ladder_only(lines: list[str]) -> list[str]:
+    """The ladder table and the recommendation, without the lines around them."""
+    start = next(i for i, line in enumerate(lines) if line.startswith("rung "))
+    end = next(i for i, line in enumerate(lines) if line.startswith("recommended:"))
+    return lines[start:end + 1]
 
 
 BLOCKS = [
@@ -88,7 +98,8 @@ BLOCKS = [
                     "head -3 runs/held-out.csv"]),
     Block("export", ["pixelfit export runs/bottle-caps/rules/tree-5.json --c firmware/cap_check.h "
                      "--vectors-from demo_sets/bottle-caps"]),
-]
+] + [Block("ladder", [f"pixelfit fit {name} --out runs/{name}"], [_ladder_only], ROOT / "demo_sets" / name / "README.md",
+           echo=False) for name in ("bottle-caps", "solder-bridges")]
 
 
 def _normalise(text: str) -> str:
@@ -111,52 +122,54 @@ def run_command(command: str, cwd: Path) -> list[str]:
     return _normalise(res.stdout).splitlines() + _normalise("\n".join(stderr)).splitlines()
 
 
-def outputs() -> dict[str, str]:
+def outputs() -> dict[Path, dict[str, str]]:
+    """Per document, the text of each of its blocks."""
     with tempfile.TemporaryDirectory() as tmp:
         cwd = Path(tmp)
         (cwd / "demo_sets").symlink_to(ROOT / "demo_sets", target_is_directory=True)
-        result = {}
+        result: dict[Path, dict[str, str]] = {}
         for block in BLOCKS:
             lines: list[str] = []
             for command in block.commands:
-                lines.append(f"$ {command}")
+                if block.echo:
+                    lines.append(f"$ {command}")
                 lines.extend(run_command(command, cwd))
             for shorten in block.shorten:
                 lines = shorten(lines)
-            result[block.name] = "\n".join(lines)
+            result.setdefault(block.doc, {})[block.name] = "\n".join(lines)
         return result
 
 
-def splice(readme: str, blocks: dict[str, str]) -> str:
-    for name, text in blocks.items():
-        rx = re.compile(rf"(<!-- walkthrough:{re.escape(name)} -->\n+```text\n)(.*?)(\n```)", re.S)
-        if not rx.search(readme):
-            raise SystemExit(f"README.md has no block marked <!-- walkthrough:{name} -->")
-        readme = rx.sub(lambda m, t=text: m.group(1) + t + m.group(3), readme, count=1)
-    return readme
+def splice(text: str, blocks: dict[str, str], doc: Path = README) -> str:
+    for name, body in blocks.items():
+        rx = re.compile(rf"(<!-- walkthrough:{re.escape(name)} -->\n+```(?:text)?\n)(.*?)(\n```)", re.S)
+        if not rx.search(text):
+            raise SystemExit(f"{doc.relative_to(ROOT)} has no block marked <!-- walkthrough:{name} -->")
+        text = rx.sub(lambda m, t=body: m.group(1) + t + m.group(3), text, count=1)
+    return text
 
 
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--check", action="store_true", help="compare instead of writing")
     args = ap.parse_args(argv)
-    old = README.read_text(encoding="utf-8")
-    new = splice(old, outputs())
-    if args.check:
-        if new != old:
-            sys.stdout.writelines(difflib.unified_diff(old.splitlines(True), new.splitlines(True), "README.md",
-                                                       "README.md (as the commands print it now)"))
-            return 1
-        print("README walkthrough matches what the commands print")
-        return 0
-    if new != old:
-        tmp = README.with_suffix(".md.tmp")
-        tmp.write_text(new, encoding="utf-8")
-        os.replace(tmp, README)
-        print("README.md updated")
-    else:
-        print("README.md already matches")
-    return 0
+    differ = False
+    for doc, blocks in outputs().items():
+        name = str(doc.relative_to(ROOT))
+        old = doc.read_text(encoding="utf-8")
+        new = splice(old, blocks, doc)
+        if new == old:
+            print(f"{name} matches what the commands print")
+        elif args.check:
+            differ = True
+            sys.stdout.writelines(difflib.unified_diff(old.splitlines(True), new.splitlines(True), name,
+                                                       f"{name} (as the commands print it now)"))
+        else:
+            tmp = doc.with_suffix(".md.tmp")
+            tmp.write_text(new, encoding="utf-8")
+            os.replace(tmp, doc)
+            print(f"{name} updated")
+    return 1 if differ else 0
 
 
 if __name__ == "__main__":
