@@ -594,7 +594,7 @@ def cmd_demo(args) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    from pixelfit.conventions import AUGMENTS, DEFAULT_REPLICATES
+    from pixelfit.conventions import AUGMENTS, DEFAULT_FOLDS, DEFAULT_MAX_SIZE, DEFAULT_REPLICATES
 
     p = _Parser(prog="pixelfit", description="How few pixels does a detector need? Train a ladder of rules "
                 "of increasing size over small binary patches and measure each one.")
@@ -639,9 +639,11 @@ def build_parser() -> argparse.ArgumentParser:
     _add_split_options(f)
     f.add_argument("--families", metavar="LIST", help="comma-separated: constant,lut,nb,logistic,tree,mlp,memorize "
                    "(default all)")
-    f.add_argument("--max-size", type=int, metavar="K", help="largest size on every family's axis (at least 1)")
+    f.add_argument("--max-size", type=int, metavar="K", default=DEFAULT_MAX_SIZE,
+                   help="largest size on every family's axis (at least 1; default: each family's own sizes)")
     f.add_argument("--sizes", action="append", metavar="FAMILY=LIST", help="one family's sizes, e.g. lut=1,2,3,5")
-    f.add_argument("--folds", type=int, default=5, help="cross-validation folds on the training part; 0 turns it off")
+    f.add_argument("--folds", type=int, default=DEFAULT_FOLDS,
+                   help=f"cross-validation folds on the training part; 0 turns it off ({DEFAULT_FOLDS})")
     f.add_argument("--spec", metavar="SPEC", help="what the detector must reach on unseen patches, e.g. "
                    "\"precision>=0.90,recall>=0.85\" (either may be left out): each rung's threshold is chosen on "
                    "the training part, judged on the held-out part, and the cheapest rung that meets it is the answer")

@@ -47,7 +47,8 @@ class DataCheckView(Listens, QtWidgets.QWidget):
         self.group_model = PatchListModel(session, self, lambda: self.group_rows)
         self.flagged = _tile_view(self.flagged_model)
         self.group = _tile_view(self.group_model)
-        self.group_label = QtWidgets.QLabel("click a flagged patch to see its group")
+        self.group_label = QtWidgets.QLabel("click a flagged patch to see its group (a tile of the group, or a "
+                                            "double-click, explains the selected rung's call on it)")
         top = QtWidgets.QHBoxLayout()
         top.addWidget(QtWidgets.QLabel("finding"))
         top.addWidget(self.chooser)
@@ -61,6 +62,9 @@ class DataCheckView(Listens, QtWidgets.QWidget):
         lay.addWidget(self.group, 1)
         self.chooser.activated.connect(lambda i: self.show_finding(self.chooser.itemData(i)))
         self.flagged.clicked.connect(lambda index: self.show_group(int(self.flagged_model.rows[index.row()])))
+        # The group's tiles (the clicked patch first) explain the selected rung's call on a click.
+        self.group.clicked.connect(lambda index: session.explain(int(self.group_model.rows[index.row()])))
+        self.flagged.doubleClicked.connect(lambda index: session.explain(int(self.flagged_model.rows[index.row()])))
         self.listen(session, "prep", self.refresh)
         self.listen(session, "check", self.refresh)
         self.refresh()
