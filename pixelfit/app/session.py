@@ -218,7 +218,7 @@ class Session:
         self._emit("dataset")
         self._rebuild_prep()
         note = f"; skipped {len(ds.skipped)} file(s)" if ds.skipped else ""
-        self.say(f"opened {ds.source}: {len(ds)} patches of {ds.shape[0]}x{ds.shape[1]}{note}")
+        self.say(f"opened {Path(ds.source).name or ds.source}: {len(ds)} patches of {ds.shape[0]}x{ds.shape[1]}{note}")
         return True
 
     def set_binarizer(self, method: str, threshold: float | None = None, invert: bool = False) -> bool:

@@ -68,7 +68,7 @@ class ExplainView(Listens, QtWidgets.QDialog):
         lay.addWidget(self.picture)
         lay.addWidget(self.caption)
         lay.addWidget(self.why, 1)
-        self.resize(640, 760)
+        self.resize(660, 640)
         self.listen(session, "explain", self.refresh)
         self.refresh()
 
@@ -94,7 +94,8 @@ class ExplainView(Listens, QtWidgets.QDialog):
                              + ("every pixel (the rule reads the whole patch)" if framed is None else
                                 "the pixels the tree read on its way to the leaf" if e["why"]["kind"] == "tree" else
                                 "the pixels the rule reads" if framed else "nothing (the rule reads no pixel)"))
-        self.why.setHtml("<pre>" + html.escape("\n".join(explanation_lines(e))) + "</pre>")
+        self.why.setHtml("<p style='font-family: monospace; white-space: pre-wrap'>"
+                         + html.escape("\n".join(explanation_lines(e))) + "</p>")
 
 
 def _confusion_html(name: str, cf: dict, threshold: float) -> str:
@@ -157,7 +158,7 @@ class CompareView(Listens, QtWidgets.QDialog):
         a, b = c["rung_a"], c["rung_b"]
         self.left.setText(_confusion_html(a, c["a"], c["threshold_a"]))
         self.right.setText(_confusion_html(b, c["b"], c["threshold_b"]))
-        self.test.setText("<br>".join(html.escape(line) for line in comparison_lines(c, a, b)[3:]))
+        self.test.setText("<br>".join(html.escape(line) for line in comparison_lines(c, a, b)[4:]))
         ds = self.session.run_prep.dataset if self.session.run_prep is not None else None
         for lst, label, rows, who in ((self.a_list, self.a_label, c["rows_only_a_right"], a),
                                       (self.b_list, self.b_label, c["rows_only_b_right"], b)):
