@@ -174,3 +174,30 @@ def test_window_and_command_line_agree_on_a_demo_set(qtbot, window, tmp_path):
                 assert entry[part][k] == getattr(rung, part)[k], (rung.key, part, k)
         assert entry["cv"]["f1_mean"] == pytest.approx(rung.cv["f1_mean"], abs=1e-12)
     assert Path(summary["dataset"]["source"]).name == Path(s.run_prep.dataset.source).name
+
+
+class _CtrlClick:
+    """A click on the plot's points with Ctrl held (the shape of pyqtgraph's click event we read)."""
+
+    def __init__(self, at):
+        self._at = at
+
+    def scenePos(self):
+        return self._at
+
+    def modifiers(self):
+        return CTRL
+
+
+def test_ctrl_click_in_the_plot_picks_the_second_rung(qtbot, window, noisy_folder):
+    w, s = window, window.session
+    assert w.open_path(noisy_folder)
+    climb(qtbot, w, ["constant", "lut", "tree"], 2, 2)
+    s.select("lut-2")
+    plot = w.error_plot
+    qtbot.waitUntil(lambda: len(plot.points.points()) == len(s.rungs))
+    spots = {p.data(): p for p in plot.points.points()}
+    at = plot.getPlotItem().getViewBox().mapViewToScene(spots["tree-1"].pos())
+    plot.points.sigClicked.emit(plot.points, [spots["tree-1"]], _CtrlClick(at))
+    assert s.selected.key == "lut-2" and s.compared == ("lut-2", "tree-1")
+    assert s.comparison()["rung_b"] == "tree-1"

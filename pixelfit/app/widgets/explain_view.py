@@ -134,6 +134,7 @@ class CompareView(Listens, QtWidgets.QDialog):
         self.resize(760, 620)
         self.listen(session, "compare", self.refresh)
         self.listen(session, "threshold", self.refresh)
+        self.listen(session, "spec", self.refresh)  # a spec moves the rungs' thresholds
         self.refresh()
 
     @staticmethod

@@ -302,7 +302,8 @@ class ErrorPlot(Listens, pg.PlotWidget):
             q = vb.mapViewToScene(p.pos())
             spots.append((p.data(), q.x(), q.y()))
         key = nearest_point(spots, where.x(), where.y())
-        if key is not None and ev.modifiers() & QtCore.Qt.KeyboardModifier.ControlModifier:
+        modifiers = getattr(ev, "modifiers", None)  # a synthetic click may carry none
+        if key is not None and modifiers is not None and modifiers() & QtCore.Qt.KeyboardModifier.ControlModifier:
             self.session.compare_with(key)  # Ctrl+click: compare with the selected rung
             return
         self.session.select(key)
