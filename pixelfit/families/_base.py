@@ -61,6 +61,8 @@ def array(value, field: str, shape: tuple | None = None, dtype=np.float64) -> np
         arr = np.asarray(value, dtype=dtype)
     except (ValueError, TypeError):
         raise RuleFileError(f"{field}: not a regular array of numbers") from None
+    except OverflowError:
+        raise RuleFileError(f"{field}: a number too large for this field") from None
     if shape is not None and arr.shape != shape:
         raise RuleFileError(f"{field}: expected shape {list(shape)}, found {list(arr.shape)}")
     if arr.dtype.kind == "f" and not np.isfinite(arr).all():

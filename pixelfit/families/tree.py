@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from pixelfit.errors import RuleFileError
-from pixelfit.families._base import CTable, Family, IntegerModel, Model, bits, c_type_for, figures, flat_pixels, ops, rc
+from pixelfit.families._base import CTable, Family, IntegerModel, Model, array, bits, c_type_for, figures, flat_pixels, ops, rc
 
 
 class TreeFamily(Family):
@@ -67,7 +67,7 @@ class TreeFamily(Family):
             label[i], score[i] = bool(node["label"]), float(node["score"])
         counts = None
         if all(node.get("counts") is not None for node in nodes):
-            counts = np.array([node["counts"] for node in nodes], np.int64).reshape(n, 2)
+            counts = array([node["counts"] for node in nodes], "model/nodes/counts", (n, 2), np.int64)
         return TreeModel(feat, left, right, label, score, counts)
 
 
