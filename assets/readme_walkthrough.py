@@ -7,8 +7,9 @@ Each output block follows a marker line ``<!-- walkthrough:NAME -->``; the block
 block after it. The main README's walkthrough runs the commands of its steps; each demo set's
 README shows the ladder that the default ``pixelfit fit`` prints for it. The commands run as
 ``python -m pixelfit ...`` in a scratch folder where ``demo_sets`` points at the repository's demo
-sets, so the paths read as a newcomer's would. What changes from run to run (creation times) is written as ``...``; long outputs are
-shortened where a block says so, with ``...`` where lines were left out.
+sets, so the paths read as a newcomer's would. What changes from run to run (creation times) is
+written as ``...``; long outputs are shortened where a block says so, with ``...`` where lines
+were left out.
 """
 
 from __future__ import annotations

@@ -15,7 +15,17 @@ from pixelfit import __version__
 from pixelfit.data import Binarizer, Dataset, choose_positive, load_dataset
 from pixelfit.demo import resolve_dataset_path as _resolve
 from pixelfit.errors import PixelfitError
-from pixelfit.text import answer_text, fmt, ladder_table, metrics_line, pixel_grid, spec_table
+from pixelfit.text import (
+    answer_text,
+    bits_grid,
+    comparison_lines,
+    explanation_lines,
+    fmt,
+    ladder_table,
+    metrics_line,
+    pixel_grid,
+    spec_table,
+)
 
 EXIT_OK, EXIT_INCOMPLETE, EXIT_BAD_INPUT = 0, 1, 2
 
@@ -545,6 +555,44 @@ def cmd_report(args) -> int:
     return EXIT_OK
 
 
+def cmd_explain(args) -> int:
+    from pixelfit.explain import explain_call, read_patch_file
+    from pixelfit.rulefile import load_rule
+
+    rule = load_rule(args.rule)
+    facts = []
+    for path in args.patches:
+        e = explain_call(rule, read_patch_file(path, rule.shape))
+        facts.append({"patch": str(path), **e})
+    if args.json:
+        print(json.dumps(facts if len(facts) > 1 else facts[0], indent=2))
+        return EXIT_OK
+    for f in facts:
+        print(f"{f['patch']}:")
+        print(bits_grid(f["bits"], f["pixels_read"]))
+        for line in explanation_lines(f):
+            print(f"  {line}")
+    return EXIT_OK
+
+
+def cmd_compare(args) -> int:
+    from pixelfit.explain import compare_run
+
+    c = compare_run(args.run, args.rung_a, args.rung_b)
+    if args.json:
+        print(json.dumps(c, indent=2))
+        return EXIT_OK
+    print(f"{args.rung_a} (threshold {c['threshold_a']:g}) against {args.rung_b} (threshold {c['threshold_b']:g}), "
+          f"detecting {c['positive']!r}, on the held-out patches of {c['source']}")
+    for line in comparison_lines(c, args.rung_a, args.rung_b):
+        print(line)
+    for side, key in ((args.rung_a, "only_a_right"), (args.rung_b, "only_b_right")):
+        names = c[key]
+        if names:
+            print(f"only {side} right: {', '.join(names[:10])}{' ...' if len(names) > 10 else ''}")
+    return EXIT_OK
+
+
 def cmd_demo(args) -> int:
     from pixelfit.demo import write_demo_set
 
@@ -554,7 +602,7 @@ def cmd_demo(args) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    from pixelfit.conventions import AUGMENTS, DEFAULT_REPLICATES
+    from pixelfit.conventions import AUGMENTS, DEFAULT_FOLDS, DEFAULT_MAX_SIZE, DEFAULT_REPLICATES
 
     p = _Parser(prog="pixelfit", description="How few pixels does a detector need? Train a ladder of rules "
                 "of increasing size over small binary patches and measure each one.")
@@ -599,9 +647,11 @@ def build_parser() -> argparse.ArgumentParser:
     _add_split_options(f)
     f.add_argument("--families", metavar="LIST", help="comma-separated: constant,lut,nb,logistic,tree,mlp,memorize "
                    "(default all)")
-    f.add_argument("--max-size", type=int, metavar="K", help="largest size on every family's axis (at least 1)")
+    f.add_argument("--max-size", type=int, metavar="K", default=DEFAULT_MAX_SIZE,
+                   help="largest size on every family's axis (at least 1; default: each family's own sizes)")
     f.add_argument("--sizes", action="append", metavar="FAMILY=LIST", help="one family's sizes, e.g. lut=1,2,3,5")
-    f.add_argument("--folds", type=int, default=5, help="cross-validation folds on the training part; 0 turns it off")
+    f.add_argument("--folds", type=int, default=DEFAULT_FOLDS,
+                   help=f"cross-validation folds on the training part; 0 turns it off ({DEFAULT_FOLDS})")
     f.add_argument("--spec", metavar="SPEC", help="what the detector must reach on unseen patches, e.g. "
                    "\"precision>=0.90,recall>=0.85\" (either may be left out): each rung's threshold is chosen on "
                    "the training part, judged on the held-out part, and the cheapest rung that meets it is the answer")
@@ -629,6 +679,26 @@ def build_parser() -> argparse.ArgumentParser:
     rp.add_argument("run", metavar="RUN_DIR", help="output folder of `pixelfit fit`")
     rp.add_argument("--out", metavar="FILE.html", help="where to write the page (default RUN_DIR/report.html)")
     rp.set_defaults(func=cmd_report)
+
+    ex = sub.add_parser("explain", help="say why a rule calls each patch as it does",
+                        description="For each patch file: the score, the rule's threshold and the call, and why "
+                        "(a truth table's pattern and its training counts, a tree's path, each pixel's "
+                        "contribution to a linear vote, the one-pixel flips that change a network's call, "
+                        "whether the memorizing rule saw the pattern). The patch is binarized as the rule's file "
+                        "says; the grid shows the patch's bits, a pixel the rule reads in brackets.")
+    ex.add_argument("rule", help="a rule file (rules/<family>-<size>.json)")
+    ex.add_argument("patches", nargs="+", metavar="PATCH_FILE", help="image files of patches of the rule's size")
+    ex.add_argument("--json", action="store_true", help="print the facts as JSON")
+    ex.set_defaults(func=cmd_explain)
+
+    cp = sub.add_parser("compare", help="compare two rungs of a fit folder on its held-out patches",
+                        description="Each rung's held-out confusion matrix at its rule file's threshold, McNemar's "
+                        "exact test on the patches where exactly one of them is right, and those patches by name.")
+    cp.add_argument("run", metavar="RUN_DIR", help="output folder of `pixelfit fit` (with rules/)")
+    cp.add_argument("rung_a", metavar="RUNG_A", help="a rung, e.g. lut-3")
+    cp.add_argument("rung_b", metavar="RUNG_B", help="another rung, e.g. tree-4")
+    cp.add_argument("--json", action="store_true", help="print the comparison as JSON")
+    cp.set_defaults(func=cmd_compare)
 
     sh = sub.add_parser("show", help="print a readable summary of a rule file",
                         description="Family and size, pixels read (as a grid), metrics with intervals, bound, "

@@ -7,6 +7,12 @@ BOUND_CONVENTION = ("one-sided upper bound on the true error rate at 95 % confid
                     "rung tried: it does not account for the recommendation choosing among the rungs")
 UNDEFINED_CONVENTION = "ratios with a zero denominator (e.g. precision with no predicted positive) are null"
 
+# Defaults of the ladder, the same for the command line and the window (one set, defined here).
+#: Largest size on every family's axis: None, each family's own sizes.
+DEFAULT_MAX_SIZE: int | None = None
+#: Cross-validation folds on the training part.
+DEFAULT_FOLDS = 5
+
 # Defaults the command line shows before it imports the core (pixelfit.robustness uses them).
 #: Bootstrap replicates per rung of the bias-variance decomposition.
 DEFAULT_REPLICATES = 5

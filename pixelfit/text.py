@@ -205,3 +205,78 @@ def metrics_line(name: str, m: dict | None) -> str:
     return (f"  {name:<9} precision {fmt(m['precision'])}{ci_text(m['precision_ci'])}  recall {fmt(m['recall'])}"
             f"{ci_text(m['recall_ci'])}  F1 {fmt(m['f1'])}  MCC {fmt(m['mcc'])}  (n={m.get('n')}, tp {m['tp']}, "
             f"fp {m['fp']}, fn {m['fn']}, tn {m['tn']})")
+
+
+def _px(p) -> str:
+    return f"({p[0]},{p[1]})"
+
+
+def _counts(d: dict) -> str:
+    if d.get("negative") is None:
+        return "training counts not recorded"
+    return f"training patches: {d['negative']} negative, {d['positive']} positive"
+
+
+def bits_grid(bits: list[list[int]], read: list[list[int]] | None) -> str:
+    """A patch's bits row by row, each pixel the rule reads in brackets (all of them when ``read`` is None)."""
+    marked = None if read is None else {(r, c) for r, c in read}
+    return "\n".join("  " + "".join(f"[{v}]" if marked is None or (r, c) in marked else f" {v} "
+                                     for c, v in enumerate(row)) for r, row in enumerate(bits))
+
+
+def explanation_lines(e: dict) -> list[str]:
+    """The facts of :func:`pixelfit.explain.explain_call` as lines of text (the window shows the same)."""
+    side = ">" if e["positive"] else "<="
+    lines = [f"{e['rung']} ({e['description']}): score {e['score']:.4f} {side} threshold {e['threshold']:.4f} "
+             f"(chosen on {e['chosen_on']}) -> {e['call']}"]
+    why = e["why"]
+    kind = why["kind"]
+    if kind == "truth table":
+        row = why["row"]
+        lines.append(f"pixels read, bit 0 first: {' '.join(_px(p) for p in why['pixels'])}; their values "
+                     f"{' '.join(map(str, why['bits']))}")
+        lines.append(f"pattern code {why['code']}: {_counts(row)}; table label "
+                     f"{'positive' if row['label'] else 'negative'}, score {row['score']:.4f}")
+    elif kind == "tree":
+        for step in why["path"]:
+            lines.append(f"node {step['node']}: pixel {_px(step['pixel'])} = {step['value']} -> {step['branch']}")
+        leaf = why["leaf"]
+        lines.append(f"leaf {leaf['node']}: {_counts(leaf)}; label {'positive' if leaf['label'] else 'negative'}, "
+                     f"score {leaf['score']:.4f}")
+    elif kind == "linear":
+        lines.append(f"bias {why['bias']:+.4f}")
+        for c in why["contributions"]:
+            lines.append(f"pixel {_px(c['pixel'])} = {c['value']}: weight {c['weight']:+.4f}, "
+                         f"contribution {c['contribution']:+.4f}")
+        t = why["threshold_log_odds"]
+        lines.append(f"log-odds {why['log_odds']:+.4f}" + ("" if t is None else f" against {t:+.4f} at the threshold"))
+    elif kind == "sensitivity":
+        flips = why["flips_that_change_call"]
+        lines.append(f"one-pixel flips that change the call: {len(flips)}"
+                     + ("" if not flips else " — " + ", ".join(f"{_px(f['pixel'])} to {f['score_if_flipped']:.3f}"
+                                                              for f in flips[:12])))
+        if why["most_sensitive"]:
+            lines.append("most sensitive pixels: " + ", ".join(
+                f"{_px(f['pixel'])} {f['change']:+.3f}" for f in why["most_sensitive"]))
+    elif kind == "memorized patterns":
+        lines.append(("this exact pattern was seen in training: " + _counts(why)) if why["seen"] else
+                     "this exact pattern was never seen in training: the default label")
+        lines.append(f"label {'positive' if why['label'] else 'negative'}, score {why['score']:.4f}")
+    if why.get("note"):
+        lines.append(f"({why['note']})")
+    return lines
+
+
+def comparison_lines(c: dict, a: str, b: str) -> list[str]:
+    """The facts of :func:`pixelfit.evaluate.compare_calls` for rungs ``a`` and ``b`` as lines of text."""
+    m = c["mcnemar"]
+    width = max(len(a), len(b))
+    lines = [f"held-out patches: {c['n']}",
+             f"{'':{width}}    tp    fp    fn    tn"]
+    for name, key in ((a, "a"), (b, "b")):
+        cf = c[key]
+        lines.append(f"{name:{width}} {cf['tp']:5d} {cf['fp']:5d} {cf['fn']:5d} {cf['tn']:5d}")
+    lines.append(f"both right {c['both_right']}, both wrong {c['both_wrong']}; only {a} right {m['b']}, "
+                 f"only {b} right {m['c']}")
+    lines.append(f"McNemar's test ({m['method']} on the {m['discordant']} discordant patches): p = {m['p_value']:.4g}")
+    return lines

@@ -654,4 +654,4 @@ def test_application_model_turns_every_refusal_into_a_message(base, tmp_path):
     (base / "spot" / "zero.png").write_bytes(b"")
     messages.clear()
     assert session.open(base) is True
-    assert messages[-1] == (f"opened {base}: {2 * N_GOOD} patches of 8x8; skipped 1 file(s)", False)
+    assert messages[-1] == (f"opened {base.name}: {2 * N_GOOD} patches of 8x8; skipped 1 file(s)", False)

@@ -14,6 +14,7 @@ from pixelfit.app.session import Session, rule_file_name
 from pixelfit.app.widgets.check_view import DataCheckView
 from pixelfit.app.widgets.checks_view import ChecksView
 from pixelfit.app.widgets.climb_panel import ClimbPanel
+from pixelfit.app.widgets.explain_view import CompareView, ExplainView
 from pixelfit.app.widgets.gallery import PatchGallery
 from pixelfit.app.widgets.inspector import RungInspector
 from pixelfit.app.widgets.ladder_view import AxisChooser, ErrorPlot, LadderTable
@@ -135,12 +136,16 @@ class MainWindow(QtWidgets.QMainWindow):
         lay.addWidget(self.strip)
         lay.addWidget(split, 1)
         self.setCentralWidget(central)
+        self.explain_view = ExplainView(s, self)
+        self.compare_view = CompareView(s, self)
         self.panels = [self.report, self.prep_panel, self.climb, self.error_plot, self.axis_chooser, self.table,
-                       self.gallery, self.check_view, self.inspector, self.checks_view]
+                       self.gallery, self.check_view, self.inspector, self.checks_view, self.explain_view,
+                       self.compare_view]
         self._unsubscribe = [s.subscribe("message", self._message), s.subscribe("run", self._update_actions),
                              s.subscribe("selection", self._update_actions),
                              s.subscribe("prep", self._update_actions), s.subscribe("rungs", self._update_actions),
-                             s.subscribe("dataset", self._dataset_opened)]
+                             s.subscribe("dataset", self._dataset_opened),
+                             s.subscribe("explain", self._show_explanation), s.subscribe("compare", self._show_comparison)]
         self._update_actions()
         self.resize(1680, 1000)
         # The trainer's fork server imports scikit-learn in its own process, so the first climb
@@ -253,6 +258,16 @@ class MainWindow(QtWidgets.QMainWindow):
         if ok:
             self._remember(str(Path(path).resolve()))
         return ok
+
+    def _show_explanation(self) -> None:
+        if self.session.explanation is not None:
+            self.explain_view.show()
+            self.explain_view.raise_()
+
+    def _show_comparison(self) -> None:
+        if self.session.compared is not None:
+            self.compare_view.show()
+            self.compare_view.raise_()
 
     def _dataset_opened(self) -> None:
         self.tabs.setCurrentWidget(self.gallery)

@@ -23,6 +23,8 @@ Events (name: when)
 ``spec``        the spec changed; every rung's spec entry and the answer were renewed
 ``checks``      results of the checks after the ladder arrived (bias and variance, learning curve,
                 stress tests), or were cleared
+``explain``     a patch's call by the selected rung was explained (see :attr:`Session.explanation`)
+``compare``     two rungs were picked for comparison, or the pair was cleared (:attr:`Session.compared`)
 ``message``     a line for the status area: ``(text, is_error)``
 
 The data check itself comes with every prepared set (:attr:`Prepared.check`, the same core call
@@ -42,19 +44,21 @@ from pathlib import Path
 
 import numpy as np
 
+from pixelfit.conventions import DEFAULT_FOLDS, DEFAULT_MAX_SIZE
 from pixelfit.data import FINDINGS, Binarizer, DataCheck, Dataset, grey_histogram, load_dataset
 from pixelfit.errors import PixelfitError
-from pixelfit.evaluate import Spec, apply_spec, detection_metrics, operating_points
+from pixelfit.evaluate import Spec, apply_spec, compare_calls, detection_metrics, operating_points
+from pixelfit.explain import explain_call
 from pixelfit.families import FAMILIES, FAMILY_ORDER, plan_rungs
 from pixelfit.firmware import export_c
 from pixelfit.ladder import Prepared, Rung, conclude, effective_folds, measure_integer, prepare, suspect_labels
 from pixelfit.outputs import error_curves, write_fit_outputs
 from pixelfit.review import library_versions, write_report
 from pixelfit.robustness import DEFAULT_REPLICATES, Checks, CheckSettings
-from pixelfit.rulefile import load_rule, save_rung
+from pixelfit.rulefile import Rule, load_rule, parse_rule, rule_document, save_rung
 
 EVENTS = ("dataset", "prep", "gallery", "settings", "run", "progress", "rungs", "selection", "threshold",
-          "map", "spec", "check", "axis", "checks", "message")
+          "map", "spec", "check", "axis", "checks", "explain", "compare", "message")
 
 #: Per-pixel maps the inspector can show: rung maps first, then maps of the training data.
 MAP_KINDS = {"native": "the rung's own map", "permutation": "permutation (held-out)",
@@ -156,8 +160,8 @@ class Session:
         self.prep: Prepared | None = None
         self.gallery_class: str | None = None
         self.families: list[str] = list(DEFAULT_FAMILIES)
-        self.max_size: int | None = 8
-        self.folds = 5
+        self.max_size: int | None = DEFAULT_MAX_SIZE  # the command line's defaults (pixelfit.conventions)
+        self.folds = DEFAULT_FOLDS
         self.scheduler: str | None = None
         self.replicates = DEFAULT_REPLICATES  # bootstrap replicates per rung; 0: no bias-variance check
         self.checks: Checks | None = None
@@ -184,6 +188,12 @@ class Session:
         self._data_maps: tuple[Prepared, dict[str, np.ndarray]] | None = None  # maps of one prepared set
         self._at_threshold: tuple | None = None  # (rung, threshold, prepared set, metrics) last computed
         self._reach: tuple | None = None  # (rung, spec, spec_reach()) last computed
+        #: The last explained call: the facts of :func:`pixelfit.explain.explain_call` with the
+        #: patch's ``row``, ``name``, ``label`` and ``subset``; None when there is none.
+        self.explanation: dict | None = None
+        #: The two rungs picked for comparison (keys), or None.
+        self.compared: tuple[str, str] | None = None
+        self._rule_cache: tuple[tuple, Rule] | None = None
 
     # ---- events -------------------------------------------------------------------------------
 
@@ -232,7 +242,7 @@ class Session:
         self._rebuild_prep()
         self._emit("progress")
         note = f"; skipped {len(ds.skipped)} file(s)" if ds.skipped else ""
-        self.say(f"opened {ds.source}: {len(ds)} patches of {ds.shape[0]}x{ds.shape[1]}{note}")
+        self.say(f"opened {Path(ds.source).name or ds.source}: {len(ds)} patches of {ds.shape[0]}x{ds.shape[1]}{note}")
         return True
 
     def set_binarizer(self, method: str, threshold: float | None = None, invert: bool = False) -> bool:
@@ -483,6 +493,13 @@ class Session:
 
     def _clear_rungs(self) -> None:
         had = bool(self.rungs)
+        self._rule_cache = None
+        if self.explanation is not None:
+            self.explanation = None
+            self._emit("explain")
+        if self.compared is not None:
+            self.compared = None
+            self._emit("compare")
         self.rungs = []
         self.recommended = None
         self.answer = None
@@ -793,6 +810,85 @@ class Session:
         if written is not None:
             self.say(f"wrote the review page to {written}")
         return written
+
+
+    # ---- explaining a call, comparing two rungs ---------------------------------------------
+
+    def _threshold_for(self, rung: Rung) -> tuple[float, str]:
+        if self.selected is rung:
+            return self.threshold, self.threshold_chosen_on
+        return self._threshold_of(rung)
+
+    def rule_of(self, rung: Rung) -> Rule:
+        """The rung as its rule file would load (at the threshold the window uses for it)."""
+        if self.run_prep is None:
+            raise PixelfitError("climb the ladder first")
+        threshold, chosen_on = self._threshold_for(rung)
+        key = (rung.key, id(rung), threshold, chosen_on)
+        if self._rule_cache is None or self._rule_cache[0] != key:
+            doc = rule_document(self.run_prep, rung, {"threshold": threshold, "chosen_on": chosen_on})
+            self._rule_cache = (key, parse_rule(doc))
+        return self._rule_cache[1]
+
+    def explain(self, row: int) -> dict | None:
+        """Explain the selected rung's call on dataset row ``row`` (the same core call as
+        ``pixelfit explain``); the facts go to :attr:`explanation` and the ``explain`` event."""
+        r = self.selected
+        prep = self.run_prep
+        if r is None or prep is None:
+            self.say("select a rung in the ladder to explain its call on a patch", True)
+            return None
+        ds = prep.dataset
+        if not 0 <= int(row) < len(ds):
+            return None
+        row = int(row)
+        facts = explain_call(self.rule_of(r), ds.images[row])
+        facts.update({"row": row, "name": ds.names[row], "label": str(ds.labels[row]),
+                      "subset": "held-out" if prep.test_mask[row] else "train"})
+        self.explanation = facts
+        self._emit("explain")
+        return facts
+
+    def compare_with(self, key: str) -> None:
+        """Pick rung ``key`` as the second of a comparison with the selected rung (Ctrl+click).
+        With no rung selected yet, ``key`` is selected instead."""
+        if self.rung(key) is None:
+            return
+        if self.selected is None:
+            self.select(key)
+            return
+        if key == self.selected.key:
+            return
+        self.compared = (self.selected.key, key)
+        self._emit("compare")
+
+    def clear_comparison(self) -> None:
+        if self.compared is not None:
+            self.compared = None
+            self._emit("compare")
+
+    def _held_out_calls(self, rung: Rung) -> np.ndarray:
+        if rung.test_scores is not None:
+            return np.asarray(rung.test_scores > self._threshold_for(rung)[0])
+        return np.asarray(rung.test_pred, bool)
+
+    def comparison(self) -> dict | None:
+        """The two compared rungs on the held-out patches, each at its threshold: the core's
+        :func:`pixelfit.evaluate.compare_calls` (as ``pixelfit compare``), with ``rung_a``,
+        ``rung_b``, their thresholds, and dataset rows ``rows_only_a_right`` / ``rows_only_b_right``."""
+        if self.compared is None or self.run_prep is None:
+            return None
+        ra, rb = self.rung(self.compared[0]), self.rung(self.compared[1])
+        if ra is None or rb is None:
+            return None
+        prep = self.run_prep
+        out = compare_calls(prep.y_test, self._held_out_calls(ra), self._held_out_calls(rb))
+        rows = np.flatnonzero(prep.test_mask)
+        out.update({"rung_a": ra.key, "rung_b": rb.key, "positive": prep.positive,
+                    "threshold_a": self._threshold_for(ra)[0], "threshold_b": self._threshold_for(rb)[0],
+                    "rows_only_a_right": [int(rows[i]) for i in out["only_a_right"]],
+                    "rows_only_b_right": [int(rows[i]) for i in out["only_b_right"]]})
+        return out
 
 
 def rule_file_name(rung: Rung, suffix: str = ".json") -> str:

@@ -9,7 +9,9 @@ from pixelfit.evaluate._bounds import (
     vc_vacuous,
 )
 from pixelfit.evaluate._compare import (
+    compare_calls,
     mcnemar,
+    mcnemar_exact,
     mcnemar_from_counts,
     one_standard_error_choice,
 )
@@ -50,7 +52,7 @@ from pixelfit.models import log2_comb, log2_lut_class, log2_memorize_class, log2
 
 __all__ = [
     "consistent_sample_size", "generalization_bound", "hoeffding_bound", "vc_bound", "vc_confidence", "vc_vacuous",
-    "mcnemar", "mcnemar_from_counts", "one_standard_error_choice", "operating_points",
+    "compare_calls", "mcnemar", "mcnemar_exact", "mcnemar_from_counts", "one_standard_error_choice", "operating_points",
     "mean_difference_map", "mutual_information_map", "permutation_map", "clopper_pearson_interval", "confusion",
     "detection_metrics", "error_rate", "metrics_from_counts", "wilson_interval", "log2_comb", "log2_lut_class",
     "log2_memorize_class", "log2_tree_class", "QUANTIZED_F1_TOLERANCE", "quantization_check",

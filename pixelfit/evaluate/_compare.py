@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy.stats import chi2
+from scipy.stats import binom, chi2
 
 
 def mcnemar(y_true: np.ndarray, pred_a: np.ndarray, pred_b: np.ndarray) -> dict:
@@ -28,6 +28,46 @@ def mcnemar_from_counts(b: int, c: int) -> dict:
         return {"b": b, "c": c, "statistic": 0.0, "p_value": 1.0}
     stat = (abs(b - c) - 1) ** 2 / (b + c)
     return {"b": b, "c": c, "statistic": float(stat), "p_value": float(chi2.sf(stat, 1))}
+
+
+def mcnemar_exact(b: int, c: int) -> dict:
+    """McNemar's exact test: a two-sided binomial test of ``b`` against ``b + c`` trials at 1/2.
+
+    p = min(1, 2 * P(X <= min(b, c))) with X ~ Binomial(b + c, 1/2); with no discordant patch p = 1.
+    """
+    b, c = int(b), int(c)
+    p = 1.0 if b + c == 0 else float(min(1.0, 2.0 * binom.cdf(min(b, c), b + c, 0.5)))
+    return {"b": b, "c": c, "discordant": b + c, "p_value": p, "method": "exact binomial, two-sided"}
+
+
+def compare_calls(y_true: np.ndarray, pred_a: np.ndarray, pred_b: np.ndarray) -> dict:
+    """Two rules' calls on the same patches: each one's confusion matrix, McNemar's exact test,
+    and the patches where they disagree, split by which one was right.
+
+    Parameters
+    ----------
+    y_true, pred_a, pred_b : ndarray of shape (n,), bool
+
+    Returns
+    -------
+    dict
+        ``a`` and ``b`` (``tp, fp, fn, tn``), ``both_right``, ``both_wrong``, ``mcnemar``
+        (:func:`mcnemar_exact`: ``b`` = patches only A got right, ``c`` = only B), and the
+        indices ``only_a_right`` and ``only_b_right`` into the given patches.
+    """
+    y = np.asarray(y_true, bool)
+    pa, pb = np.asarray(pred_a, bool), np.asarray(pred_b, bool)
+    if not (y.shape == pa.shape == pb.shape) or y.ndim != 1:
+        raise ValueError("the truth and both predictions must be vectors of one length")
+    ra, rb = pa == y, pb == y
+
+    def conf(p: np.ndarray) -> dict:
+        return {"tp": int(np.sum(p & y)), "fp": int(np.sum(p & ~y)), "fn": int(np.sum(~p & y)), "tn": int(np.sum(~p & ~y))}
+
+    only_a, only_b = np.flatnonzero(ra & ~rb), np.flatnonzero(~ra & rb)
+    return {"n": int(len(y)), "a": conf(pa), "b": conf(pb), "both_right": int(np.sum(ra & rb)),
+            "both_wrong": int(np.sum(~ra & ~rb)), "mcnemar": mcnemar_exact(len(only_a), len(only_b)),
+            "only_a_right": [int(i) for i in only_a], "only_b_right": [int(i) for i in only_b]}
 
 
 def one_standard_error_choice(cv_means: list[float | None], cv_sds: list[float | None], folds: int,

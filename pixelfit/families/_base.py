@@ -61,6 +61,8 @@ def array(value, field: str, shape: tuple | None = None, dtype=np.float64) -> np
         arr = np.asarray(value, dtype=dtype)
     except (ValueError, TypeError):
         raise RuleFileError(f"{field}: not a regular array of numbers") from None
+    except OverflowError:
+        raise RuleFileError(f"{field}: a number too large for this field") from None
     if shape is not None and arr.shape != shape:
         raise RuleFileError(f"{field}: expected shape {list(shape)}, found {list(arr.shape)}")
     if arr.dtype.kind == "f" and not np.isfinite(arr).all():
@@ -244,6 +246,57 @@ class Model:
         """The integer-only predictor at ``threshold`` (call positive when score > it; None: the
         model's own decision)."""
         raise NotImplementedError
+
+    def explain(self, x: np.ndarray, shape: tuple[int, int], threshold: float) -> dict:
+        """Why the model scores one patch as it does, as plain JSON-ready data.
+
+        x : ndarray of shape (n_pixels,), bool. Every family gives at least ``kind``; the default
+        is the one-pixel sensitivity (see :func:`flip_sensitivity`).
+        """
+        return flip_sensitivity(self, x, shape, threshold)
+
+
+#: Most pixels listed by a one-pixel sensitivity (the flips that change the call are all listed).
+MAX_SENSITIVE = 10
+
+
+def flip_sensitivity(model: Model, x: np.ndarray, shape: tuple[int, int], threshold: float) -> dict:
+    """Score of the patch with each single pixel flipped: the flips that change the call (score >
+    ``threshold`` or not), and the pixels that move the score most, largest change first."""
+    x = np.asarray(x, bool).reshape(-1)
+    flipped = np.repeat(x[None, :], len(x), axis=0)
+    idx = np.arange(len(x))
+    flipped[idx, idx] = ~flipped[idx, idx]
+    base = float(model.decide(x[None, :])[0][0])
+    scores = model.decide(flipped)[0].astype(np.float64)
+    change = scores - base
+    order = np.argsort(-np.abs(change), kind="stable")
+    w = shape[1]
+
+    def entry(i) -> dict:
+        return {"pixel": rc(i, w), "value": int(x[i]), "score_if_flipped": float(scores[i]),
+                "change": float(change[i])}
+
+    changes_call = [entry(i) for i in order if (scores[i] > threshold) != (base > threshold)]
+    return {"kind": "sensitivity", "flips_that_change_call": changes_call,
+            "most_sensitive": [entry(i) for i in order[:MAX_SENSITIVE] if change[i] != 0]}
+
+
+def linear_explanation(pixels: np.ndarray, weights: np.ndarray, bias: float, x: np.ndarray,
+                       shape: tuple[int, int], threshold: float) -> dict:
+    """A weighted vote ``z = bias + sum of weights[j] * x[pixels[j]]``, score = sigmoid(z): each read
+    pixel's contribution (its weight when lit, 0 when dark), largest magnitude first."""
+    x = np.asarray(x, bool).reshape(-1)
+    vals = x[pixels].astype(np.float64)
+    contrib = vals * weights
+    order = np.argsort(-np.abs(contrib), kind="stable")
+    w = shape[1]
+    rows = [{"pixel": rc(pixels[j], w), "value": int(vals[j]), "weight": float(weights[j]),
+             "contribution": float(contrib[j])} for j in order]
+    z = float(bias + contrib.sum())
+    return {"kind": "linear", "contributions": rows, "bias": float(bias), "log_odds": z,
+            "threshold_log_odds": None if not 0 < threshold < 1 else float(math.log(threshold / (1 - threshold))),
+            "note": "score = 1 / (1 + exp(-(bias + sum of contributions))); a dark pixel contributes 0"}
 
 
 class Family:

@@ -49,6 +49,10 @@ class ConstantModel(Model):
     def pixels_used(self):
         return []
 
+    def explain(self, x, shape, threshold):
+        return {"kind": "constant", "note": "reads no pixel: every patch gets the same score, the training "
+                                            "share of the positive class"}
+
     def integer(self, threshold=None):
         return ConstantInteger(self.label if threshold is None else self.score > threshold)
 

@@ -8,7 +8,16 @@ import numpy as np
 
 from pixelfit._numeric import linear_decision, sigmoid
 from pixelfit.errors import RuleFileError
-from pixelfit.families._base import Family, Model, SparseLinearInteger, array, bits, figures, powers_of_two_up_to
+from pixelfit.families._base import (
+    Family,
+    Model,
+    SparseLinearInteger,
+    array,
+    bits,
+    figures,
+    linear_explanation,
+    powers_of_two_up_to,
+)
 
 
 class LogisticFamily(Family):
@@ -55,6 +64,10 @@ class LogisticModel(Model):
 
     def pixels_used(self):
         return [int(i) for i in np.flatnonzero(self.coef)]
+
+    def explain(self, x, shape, threshold):
+        used = np.flatnonzero(self.coef)
+        return linear_explanation(used, self.coef[used], self.bias, x, shape, threshold)
 
     def integer(self, threshold=None):
         used = np.flatnonzero(self.coef)

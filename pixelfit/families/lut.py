@@ -36,6 +36,7 @@ class LutFamily(Family):
         w = shape[1]
         return {"pixels": [rc(i, w) for i in est.pixels_], "table": [int(v) for v in est.table_],
                 "scores": [float(v) for v in est.rate_],
+                "counts": [[int(n), int(p)] for n, p in est.counts_],
                 "bit_order": "bit j of a pattern code is the value of the j-th listed pixel"}
 
     def native_importance(self, est, X, y, shape):
@@ -67,7 +68,8 @@ class LutFamily(Family):
         if k > MAX_LUT_PIXELS:
             raise RuleFileError(f"model/pixels: {k} pixels is more than a truth table can hold here ({MAX_LUT_PIXELS})")
         table = array(m["table"], "model/table", (2**k,), np.int64).astype(bool)
-        return LutModel(pixels, table, array(m["scores"], "model/scores", (2**k,)))
+        counts = None if m.get("counts") is None else array(m["counts"], "model/counts", (2**k, 2), np.int64)
+        return LutModel(pixels, table, array(m["scores"], "model/scores", (2**k,)), counts)
 
 
 def _codes(X: np.ndarray, pixels: np.ndarray) -> np.ndarray:
@@ -75,8 +77,10 @@ def _codes(X: np.ndarray, pixels: np.ndarray) -> np.ndarray:
 
 
 class LutModel(Model):
-    def __init__(self, pixels: np.ndarray, table: np.ndarray, scores: np.ndarray):
+    def __init__(self, pixels: np.ndarray, table: np.ndarray, scores: np.ndarray, counts: np.ndarray | None = None):
         self.pixels, self.table, self.scores = pixels, table, scores
+        #: training patches (negative, positive) per pattern code; None when the file records none
+        self.counts = counts
 
     def decide(self, X):
         codes = _codes(X, self.pixels)
@@ -84,6 +88,19 @@ class LutModel(Model):
 
     def pixels_used(self):
         return [int(i) for i in self.pixels]
+
+    def explain(self, x, shape, threshold):
+        code = int(_codes(np.asarray(x, bool).reshape(1, -1), self.pixels)[0])
+        w = shape[1]
+        row = {"code": code, "label": bool(self.table[code]), "score": float(self.scores[code]),
+               "negative": None if self.counts is None else int(self.counts[code, 0]),
+               "positive": None if self.counts is None else int(self.counts[code, 1])}
+        return {"kind": "truth table", "pixels": [rc(i, w) for i in self.pixels],
+                "bits": [int(x[i]) for i in self.pixels], "code": code, "row": row,
+                "note": ("bit j of the code is the j-th listed pixel; the row's counts are the training patches "
+                         "of each class with this pattern" if self.counts is not None else
+                         "bit j of the code is the j-th listed pixel; this rule file records no counts per "
+                         "pattern, only the score (the positive share of the training patches with it)")}
 
     def integer(self, threshold=None):
         return LutInteger(self.pixels, self.table if threshold is None else self.scores > threshold)

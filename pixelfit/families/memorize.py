@@ -33,7 +33,8 @@ class MemorizeFamily(Family):
     def section(self, est, shape):
         cn, cp = est.counts_[:, 0], est.counts_[:, 1]
         return {"patterns": [row.tobytes().hex() for row in est.patterns_], "labels": [int(v) for v in cp > cn],
-                "scores": [float(v) for v in cp / np.maximum(cp + cn, 1)], "default_label": bool(est.default_),
+                "scores": [float(v) for v in cp / np.maximum(cp + cn, 1)],
+                "counts": [[int(n), int(p)] for n, p in zip(cn, cp)], "default_label": bool(est.default_),
                 "default_score": float(est.prior_),
                 "packing": "each pattern is the row-major patch packed 8 pixels a byte, first pixel in the high bit"}
 
@@ -51,10 +52,13 @@ class MemorizeFamily(Family):
         keys = [bytes.fromhex(s) for s in pats]
         if len(set(keys)) != n:
             raise RuleFileError("model/patterns: a pattern is listed twice")
+        counts = None if m.get("counts") is None else array(m["counts"], "model/counts", (n, 2), np.int64)
         order = sorted(range(n), key=lambda i: keys[i])  # sorted, for a binary search in C
         packed = np.array([list(keys[i]) for i in order], np.int64).reshape(n, n_bytes)
-        return MemorizeModel(n_pixels, packed, labels[order], scores[order], bool(m["default_label"]),
-                             float(m["default_score"]))
+        model = MemorizeModel(n_pixels, packed, labels[order], scores[order], bool(m["default_label"]),
+                              float(m["default_score"]))
+        model.counts = None if counts is None else counts[order]
+        return model
 
 
 def _lookup(X: np.ndarray, index: dict[bytes, int]) -> np.ndarray:
@@ -67,6 +71,8 @@ class MemorizeModel(Model):
         self.n_pixels, self.patterns, self.labels, self.scores = n_pixels, patterns, labels, scores
         self.default_label, self.default_score = default_label, default_score
         self.index = {bytes(row.astype(np.uint8)): i for i, row in enumerate(patterns)}
+        #: training patches (negative, positive) per pattern, in the order of ``patterns``; None if not recorded
+        self.counts: np.ndarray | None = None
 
     def decide(self, X):
         idx = _lookup(X, self.index)
@@ -76,6 +82,20 @@ class MemorizeModel(Model):
 
     def pixels_used(self):
         return None
+
+    def explain(self, x, shape, threshold):
+        i = int(_lookup(np.asarray(x, bool).reshape(1, -1), self.index)[0])
+        if i < 0:
+            return {"kind": "memorized patterns", "seen": False, "label": bool(self.default_label),
+                    "score": float(self.default_score), "negative": None, "positive": None,
+                    "note": "this exact pattern was not among the training patches: the default (majority) "
+                            "label and the training share of the positive class"}
+        c = self.counts
+        return {"kind": "memorized patterns", "seen": True, "label": bool(self.labels[i]),
+                "score": float(self.scores[i]), "negative": None if c is None else int(c[i, 0]),
+                "positive": None if c is None else int(c[i, 1]),
+                "note": "this exact pattern was seen in training; the counts are the training patches of each "
+                        "class with it" + ("" if c is not None else " (not recorded in this rule file)")}
 
     def integer(self, threshold=None):
         if threshold is None:

@@ -5,7 +5,18 @@ from __future__ import annotations
 import numpy as np
 
 from pixelfit.errors import RuleFileError
-from pixelfit.families._base import Family, Model, SparseLinearInteger, array, bits, figures, flat_pixels, powers_of_two_up_to, rc
+from pixelfit.families._base import (
+    Family,
+    Model,
+    SparseLinearInteger,
+    array,
+    bits,
+    figures,
+    flat_pixels,
+    linear_explanation,
+    powers_of_two_up_to,
+    rc,
+)
 
 
 def log_odds(class_log_prior: np.ndarray, log_prob_on: np.ndarray) -> tuple[np.ndarray, float]:
@@ -89,6 +100,10 @@ class NaiveBayesModel(Model):
 
     def pixels_used(self):
         return [int(i) for i in self.pixels]
+
+    def explain(self, x, shape, threshold):
+        w, b = log_odds(self.prior, self.on)
+        return linear_explanation(self.pixels, w, b, x, shape, threshold)
 
     def integer(self, threshold=None):
         w, b = log_odds(self.prior, self.on)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from pixelfit.errors import RuleFileError
-from pixelfit.families._base import CTable, Family, IntegerModel, Model, bits, c_type_for, figures, flat_pixels, ops, rc
+from pixelfit.families._base import CTable, Family, IntegerModel, Model, array, bits, c_type_for, figures, flat_pixels, ops, rc
 
 
 class TreeFamily(Family):
@@ -45,8 +45,11 @@ class TreeFamily(Family):
             leaf = t.children_left[i] == -1
             v = t.value[i][0]
             frac = float(v[1] / v.sum()) if v.sum() > 0 else 0.0
+            n = int(t.n_node_samples[i])
+            pos = int(round(frac * n))  # value holds class fractions (or counts): n and the share give the counts
             nodes.append({"pixel": None if leaf else rc(t.feature[i], w), "left": int(t.children_left[i]),
-                          "right": int(t.children_right[i]), "label": int(v[1] > v[0]), "score": frac})
+                          "right": int(t.children_right[i]), "label": int(v[1] > v[0]), "score": frac,
+                          "counts": [n - pos, pos]})
         return {"nodes": nodes, "branch": "go to 'left' when the pixel is 0, to 'right' when it is 1"}
 
     def decode(self, m, shape):
@@ -70,7 +73,10 @@ class TreeFamily(Family):
                         raise RuleFileError(f"model/nodes/{i}/{side}: child {child} must be a later node (< {n})")
             left[i], right[i] = lo, ro
             label[i], score[i] = bool(node["label"]), float(node["score"])
-        return TreeModel(feat, left, right, label, score)
+        counts = None
+        if all(node.get("counts") is not None for node in nodes):
+            counts = array([node["counts"] for node in nodes], "model/nodes/counts", (n, 2), np.int64)
+        return TreeModel(feat, left, right, label, score, counts)
 
 
 def _walk(X: np.ndarray, feat, left, right) -> np.ndarray:
@@ -89,8 +95,9 @@ def _walk(X: np.ndarray, feat, left, right) -> np.ndarray:
 
 
 class TreeModel(Model):
-    def __init__(self, feat, left, right, label, score):
+    def __init__(self, feat, left, right, label, score, counts=None):
         self.feat, self.left, self.right, self.label, self.score = feat, left, right, label, score
+        self.counts = counts  # training patches (negative, positive) reaching each node, or None
 
     def decide(self, X):
         leaf = _walk(X, self.feat, self.left, self.right)
@@ -98,6 +105,23 @@ class TreeModel(Model):
 
     def pixels_used(self):
         return sorted({int(i) for i in self.feat[self.feat >= 0]})
+
+    def explain(self, x, shape, threshold):
+        x = np.asarray(x, bool).reshape(-1)
+        w = shape[1]
+        path, node = [], 0
+        while self.feat[node] >= 0:
+            value = bool(x[self.feat[node]])
+            path.append({"node": node, "pixel": rc(self.feat[node], w), "value": int(value),
+                         "branch": "right" if value else "left"})
+            node = int(self.right[node] if value else self.left[node])
+        c = self.counts
+        leaf = {"node": node, "label": bool(self.label[node]), "score": float(self.score[node]),
+                "negative": None if c is None else int(c[node, 0]), "positive": None if c is None else int(c[node, 1])}
+        return {"kind": "tree", "path": path, "leaf": leaf,
+                "note": "from the root: a pixel's value 0 goes left, 1 goes right; the leaf's counts are the "
+                        "training patches of each class that reach it"
+                        + ("" if c is not None else " (not recorded in this rule file)")}
 
     def integer(self, threshold=None):
         return TreeInteger(self.feat, self.left, self.right, self.label if threshold is None else self.score > threshold)

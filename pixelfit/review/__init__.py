@@ -8,9 +8,13 @@ from pixelfit.review._page import (
     NOT_COMPUTED,
     REPORT_NAME,
     library_versions,
+    load_run_data,
+    read_split,
+    read_summary,
     render_report,
     report_context,
     write_report,
 )
 
-__all__ = ["NOT_COMPUTED", "REPORT_NAME", "library_versions", "render_report", "report_context", "write_report"]
+__all__ = ["NOT_COMPUTED", "REPORT_NAME", "library_versions", "load_run_data", "read_split", "read_summary",
+           "render_report", "report_context", "write_report"]

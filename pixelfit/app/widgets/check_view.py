@@ -21,6 +21,10 @@ FINDING_TEXT = {
 }
 
 
+GROUP_HINT = ("click a flagged patch to see its group; click a tile of the group (or double-click a flagged "
+              "one) to see why the selected rung calls it as it does")
+
+
 def _tile_view(model: PatchListModel) -> QtWidgets.QListView:
     v = QtWidgets.QListView()
     v.setViewMode(QtWidgets.QListView.ViewMode.IconMode)
@@ -47,7 +51,7 @@ class DataCheckView(Listens, QtWidgets.QWidget):
         self.group_model = PatchListModel(session, self, lambda: self.group_rows)
         self.flagged = _tile_view(self.flagged_model)
         self.group = _tile_view(self.group_model)
-        self.group_label = QtWidgets.QLabel("click a flagged patch to see its group")
+        self.group_label = QtWidgets.QLabel(GROUP_HINT)
         top = QtWidgets.QHBoxLayout()
         top.addWidget(QtWidgets.QLabel("finding"))
         top.addWidget(self.chooser)
@@ -61,6 +65,9 @@ class DataCheckView(Listens, QtWidgets.QWidget):
         lay.addWidget(self.group, 1)
         self.chooser.activated.connect(lambda i: self.show_finding(self.chooser.itemData(i)))
         self.flagged.clicked.connect(lambda index: self.show_group(int(self.flagged_model.rows[index.row()])))
+        # The group's tiles (the clicked patch first) explain the selected rung's call on a click.
+        self.group.clicked.connect(lambda index: session.explain(int(self.group_model.rows[index.row()])))
+        self.flagged.doubleClicked.connect(lambda index: session.explain(int(self.flagged_model.rows[index.row()])))
         self.listen(session, "prep", self.refresh)
         self.listen(session, "check", self.refresh)
         self.refresh()
@@ -104,7 +111,7 @@ class DataCheckView(Listens, QtWidgets.QWidget):
                 f"{f['leaked_test_binary']} binarized, {f['near_duplicate_test']} within one bit; "
                 f"suspects: {suspects}")
         self.group_rows = np.zeros(0, np.intp)
-        self.group_label.setText("click a flagged patch to see its group")
+        self.group_label.setText(GROUP_HINT)
         self._fill()
 
     def _fill(self) -> None:

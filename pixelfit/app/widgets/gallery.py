@@ -84,6 +84,7 @@ class PatchGallery(Listens, QtWidgets.QWidget):
         lay.addLayout(top)
         lay.addWidget(self.view)
         self.filter.activated.connect(lambda i: session.set_gallery_class(self.filter.itemData(i)))
+        self.view.clicked.connect(lambda index: session.explain(int(self.model.rows[index.row()])))
         self.listen(session, "dataset", self._classes_changed)
         self.listen(session, "prep", self._refill)
         self.listen(session, "gallery", self._refill)

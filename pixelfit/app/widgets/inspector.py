@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
@@ -15,6 +17,10 @@ MAX_MISSES = 48
 #: Miss thumbnails kept for reuse before the store starts afresh.
 MAX_THUMBS = 4096
 SLIDER_STEPS = 1000
+EMPTY_TEXT = ("No rung selected.\n\nClimb the ladder, then click a rung in the table or the plot to inspect "
+              "it here; Ctrl+click a second rung to compare the two.")
+EMPTY_RUNNING = ("The ladder is climbing.\n\nClick a finished rung in the table or the plot to inspect it here; "
+                 "the recommended rung is shown when the climb ends.")
 
 
 def _pct(v) -> str:
@@ -42,6 +48,9 @@ class PixelMap(pg.GraphicsLayoutWidget):
             self.plot.getAxis(side).enableAutoSIPrefix(False)
             # drawn once per change, then blitted (see ErrorPlot in ladder_view.py)
             self.plot.getAxis(side).setCacheMode(QtWidgets.QGraphicsItem.CacheMode.DeviceCoordinateCache)
+        # Fixed axis sizes: the square-pixel margins (_square) are measured against them.
+        self.plot.getAxis("left").setWidth(48)
+        self.plot.getAxis("bottom").setHeight(40)
         self.image = pg.ImageItem(axisOrder="row-major")
         self.plot.addItem(self.image)
         self.outline = pg.ScatterPlotItem(symbol="s", brush=None, pen=pg.mkPen((0, 0, 0), width=1.5), pxMode=False)
@@ -72,7 +81,44 @@ class PixelMap(pg.GraphicsLayoutWidget):
             self.outline.setData(x=rc[:, 1] + 0.5, y=rc[:, 0] + 0.5, size=0.92)
         else:
             self.outline.setData([])
-        self.plot.setRange(xRange=(0, w), yRange=(0, h), padding=0.02)
+        self._fit_to_patch(h, w)
+
+    def _fit_to_patch(self, h: int, w: int) -> None:
+        """The view holds the patch and nothing else: square pixels, a tick at each pixel's centre
+        labelled by its row or column (every few on a large patch), row 0 at the top."""
+        self.plot.setAspectLocked(False)  # square pixels come from the margins (_square), not a wider view
+        self.plot.setRange(xRange=(0, w), yRange=(0, h), padding=0)
+        if getattr(self, "_fitted", None) != (h, w):
+            self._fitted = (h, w)
+            for side, n in (("bottom", w), ("left", h)):
+                step = max(1, math.ceil(n / 12))
+                self.plot.getAxis(side).setTicks([[(i + 0.5, str(i)) for i in range(0, n, step)], []])
+        self._square()
+
+    def _square(self) -> None:
+        """Pad the layout so that the plot's view has the patch's proportions (square pixels)."""
+        fitted = getattr(self, "_fitted", None)
+        if fitted is None:
+            return
+        h, w = fitted
+        lay = self.ci.layout
+        mx = my = 0.0
+        for _ in range(4):  # the axes' widths change with the margins: a few passes settle it
+            lay.setContentsMargins(mx, my, mx, my)
+            lay.activate()
+            rect = self.plot.getViewBox().geometry()
+            vw, vh = rect.width(), rect.height()
+            if vw <= 0 or vh <= 0:
+                return
+            k = min(vw / w, vh / h)
+            dx, dy = (vw - k * w) / 2, (vh - k * h) / 2
+            if dx < 0.5 and dy < 0.5:
+                return
+            mx, my = mx + dx, my + dy
+
+    def resizeEvent(self, event) -> None:
+        super().resizeEvent(event)
+        self._square()
 
 
 def _drop_colour(drop: float | None, scale: float) -> QtGui.QColor:
@@ -209,7 +255,8 @@ class RungInspector(Listens, QtWidgets.QWidget):
         misses.addWidget(self.fn_label, 0, 1)
         misses.addWidget(self.fp_list, 1, 0)
         misses.addWidget(self.fn_list, 1, 1)
-        lay = QtWidgets.QVBoxLayout(self)
+        body = QtWidgets.QWidget()
+        lay = QtWidgets.QVBoxLayout(body)
         lay.setContentsMargins(4, 4, 4, 4)
         lay.addLayout(top)
         lay.addLayout(mid, 3)
@@ -218,11 +265,21 @@ class RungInspector(Listens, QtWidgets.QWidget):
         lay.addLayout(thr)
         lay.addWidget(self.stress)
         lay.addLayout(misses, 1)
+        # With no rung selected (and through a climb until one is picked) a plain line, not empty axes.
+        self.empty = QtWidgets.QLabel(EMPTY_TEXT)
+        self.empty.setWordWrap(True)
+        self.empty.setAlignment(QtCore.Qt.AlignmentFlag.AlignCenter)
+        self.empty.setStyleSheet("color: #666; font-size: 13px; padding: 24px;")
+        self.pages = QtWidgets.QStackedLayout(self)
+        self.pages.addWidget(self.empty)
+        self.pages.addWidget(body)
 
         self.kind.activated.connect(lambda i: session.set_map_kind(self.kind.itemData(i)))
         self.slider.valueChanged.connect(lambda v: session.set_threshold(v / SLIDER_STEPS))
         self.slider_value.valueChanged.connect(session.set_threshold)
         self.go_target.clicked.connect(session.move_to_spec)
+        for lst in (self.fp_list, self.fn_list):  # a click on a miss explains the call
+            lst.itemClicked.connect(lambda item: session.explain(item.data(QtCore.Qt.ItemDataRole.UserRole)))
         # A new selection shows its title, map and fixed rows at once and the held-out figures at
         # the threshold (core metrics, miss thumbnails) on the next turn of the event loop, so
         # that input and painting get in between the two halves.
@@ -234,6 +291,7 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self.listen(session, "prep", self._prep_changed)
         self.listen(session, "spec", self._target_changed)
         self.listen(session, "checks", self._show_stress)
+        self.listen(session, "run", lambda: self.empty.setText(EMPTY_RUNNING if session.running else EMPTY_TEXT))
         self.refresh()
 
     @staticmethod
@@ -284,6 +342,8 @@ class RungInspector(Listens, QtWidgets.QWidget):
     def refresh(self) -> None:
         s = self.session
         r = s.selected
+        self.pages.setCurrentIndex(0 if r is None else 1)
+        self.empty.setText(EMPTY_RUNNING if s.running else EMPTY_TEXT)
         self._title()
         scored = r is not None and r.scored
         for w in (self.slider, self.slider_value):

@@ -150,6 +150,17 @@ class LadderTable(Listens, QtWidgets.QTableView):
         self.listen(session, "run", self._fit_columns.flush)
         self.resizeColumnsToContents()  # the empty table shows whole column titles
 
+    def mousePressEvent(self, event: QtGui.QMouseEvent) -> None:
+        # Ctrl+click picks a second rung to compare with the selected one; the selection stays.
+        if event.modifiers() & QtCore.Qt.KeyboardModifier.ControlModifier:
+            index = self.indexAt(event.position().toPoint())
+            rows = self.table_model.rows
+            if index.isValid() and index.row() < len(rows):
+                self.session.compare_with(rows[index.row()].key)
+            event.accept()
+            return
+        super().mousePressEvent(event)
+
     def _row_chosen(self, current: QtCore.QModelIndex, _previous) -> None:
         rows = self.table_model.rows
         if current.isValid() and current.row() < len(rows):
@@ -318,7 +329,12 @@ class ErrorPlot(Listens, pg.PlotWidget):
         for p in self.points.points():
             q = vb.mapViewToScene(p.pos())
             spots.append((p.data(), q.x(), q.y()))
-        self.session.select(nearest_point(spots, where.x(), where.y()))
+        key = nearest_point(spots, where.x(), where.y())
+        modifiers = getattr(ev, "modifiers", None)  # a synthetic click may carry none
+        if key is not None and modifiers is not None and modifiers() & QtCore.Qt.KeyboardModifier.ControlModifier:
+            self.session.compare_with(key)  # Ctrl+click: compare with the selected rung
+            return
+        self.session.select(key)
 
     def _curve(self, family: str, kind: str) -> pg.PlotCurveItem:
         item = self._curves.get((family, kind))

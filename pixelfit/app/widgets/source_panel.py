@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import html
+from pathlib import Path
 
 from pixelfit.app._qt import QtCore, QtWidgets
 from pixelfit.app.session import Session
@@ -90,6 +91,7 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
         self.positive.clear()
         self.skipped.clear()
         if ds is None:
+            self.summary.setToolTip("")
             self.positive.blockSignals(False)
             self.skipped_label.setText("")
             self.skipped.setVisible(False)
@@ -104,7 +106,10 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
             kind = ("given split" if s.prep.presplit else
                     f"held out {s.prep.test_fraction:.0%}, seed {s.prep.seed}, {s.prep.split_method}")
             split = f"<br>{len(s.prep.y_train)} train / {len(s.prep.y_test)} held-out ({kind})"
-        self.summary.setText(f"<b>{html.escape(ds.source)}</b><br>{len(ds)} patches of {h}&times;{w} "
+        # The folder's (or file's) name; its full path is a tooltip, so no picture shows a machine's path.
+        self.summary.setToolTip(str(ds.source))
+        name = Path(ds.source).name or str(ds.source)
+        self.summary.setText(f"<b>{html.escape(name)}</b><br>{len(ds)} patches of {h}&times;{w} "
                              f"({html.escape(ds.layout)}){split}<table>{rows}</table>")
         for c in ds.counts:
             self.positive.addItem(c, c)
