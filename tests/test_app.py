@@ -450,3 +450,25 @@ def test_cluster_field_goes_to_the_session_and_the_run(qtbot, window, class_fold
     field.editingFinished.emit()
     assert s.scheduler is None and s.start_run().scheduler is None
     s.running = False
+
+
+def test_a_climb_keeps_full_garbage_collection_out_and_collects_after(qtbot, tmp_path):
+    # Full collections walk the whole heap (over 100 ms with a climbed ladder): the window freezes
+    # what exists while a ladder climbs, collects once after it ends, and unfreezes when released.
+    import gc
+
+    w = MainWindow(settings=QtCore.QSettings(str(tmp_path / "s.ini"), QtCore.QSettings.Format.IniFormat),
+                   ask=lambda *_: True)
+    qtbot.addWidget(w)
+    gc.unfreeze()
+    s = w.session
+    s.running = True
+    s._emit("run")
+    frozen = gc.get_freeze_count()
+    assert frozen > 0
+    s.running = False
+    s._emit("run")
+    assert gc.get_freeze_count() == 0
+    qtbot.waitUntil(lambda: gc.get_freeze_count() > 0, timeout=3000)  # collected, then frozen again
+    w.release()
+    assert gc.get_freeze_count() == 0

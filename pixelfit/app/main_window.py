@@ -3,6 +3,7 @@ ladder worker's lifetime, and the application entry point."""
 
 from __future__ import annotations
 
+import gc
 import sys
 import traceback
 from collections.abc import Callable
@@ -145,7 +146,8 @@ class MainWindow(QtWidgets.QMainWindow):
                              s.subscribe("selection", self._update_actions),
                              s.subscribe("prep", self._update_actions), s.subscribe("rungs", self._update_actions),
                              s.subscribe("dataset", self._dataset_opened),
-                             s.subscribe("explain", self._show_explanation), s.subscribe("compare", self._show_comparison)]
+                             s.subscribe("explain", self._show_explanation), s.subscribe("compare", self._show_comparison),
+                             s.subscribe("run", self._collector_for_run)]
         self._update_actions()
         self.resize(1680, 1000)
         # The trainer's fork server imports scikit-learn in its own process, so the first climb
@@ -268,6 +270,25 @@ class MainWindow(QtWidgets.QMainWindow):
         if self.session.compared is not None:
             self.compare_view.show()
             self.compare_view.raise_()
+
+    def _collector_for_run(self) -> None:
+        """Keep Python's full garbage collection out of a climb.
+
+        A full collection walks every object the window holds (data set, rungs, maps, plots) and
+        stalled the event loop by over 100 ms mid-climb. While a ladder climbs, what existed before
+        it is frozen (left out of collections); a quarter second after it ends, one collection runs
+        and everything is frozen again, so the next climb starts from a clean heap.
+        """
+        if self.session.running:
+            gc.freeze()
+        else:
+            gc.unfreeze()
+            QtCore.QTimer.singleShot(250, self._collect_and_freeze)
+
+    def _collect_and_freeze(self) -> None:
+        if not self.session.running:
+            gc.collect()
+            gc.freeze()
 
     def _dataset_opened(self) -> None:
         self.tabs.setCurrentWidget(self.gallery)
@@ -420,6 +441,7 @@ class MainWindow(QtWidgets.QMainWindow):
         self._unsubscribe = []
         for p in self.panels:
             p.detach()
+        gc.unfreeze()  # what this window froze becomes collectable again
 
 
 def _open_initial(window: MainWindow, path: str | None) -> None:
