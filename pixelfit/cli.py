@@ -762,7 +762,7 @@ def cmd_gui(args) -> int:
     missing = [m for m in ("PySide6", "pyqtgraph") if importlib.util.find_spec(m) is None]
     if missing:
         raise PixelfitError(f"the desktop application needs {' and '.join(missing)}; install pixelfit with its dependencies")
-    from pixelfit.app._screen import environment_problem, probe_problem
+    from pixelfit.app import environment_problem, probe_problem
 
     problem = environment_problem() or probe_problem()
     if problem:

@@ -4,7 +4,7 @@ import os
 import subprocess
 import sys
 
-from pixelfit.app._screen import environment_problem, explain_qt_failure
+from pixelfit.app import environment_problem, explain_qt_failure
 
 
 def _env(**changes):

@@ -582,8 +582,7 @@ def _brute_points(y: np.ndarray, scores: np.ndarray) -> dict[float, tuple[float,
 def test_operating_points_and_target_search_against_brute_force():
     from sklearn.metrics import precision_recall_curve
 
-    from pixelfit.evaluate import operating_points
-    from pixelfit.evaluate._spec import choose_threshold
+    from pixelfit.evaluate import choose_threshold, operating_points
 
     rng = np.random.default_rng(8)
     for _trial in range(300):

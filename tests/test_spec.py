@@ -12,8 +12,17 @@ from scipy.stats import beta
 
 from pixelfit.cli import main
 from pixelfit.errors import PixelfitError
-from pixelfit.evaluate import Spec, answer, lower_bound, parse_spec, patches_needed, verdict
-from pixelfit.evaluate._spec import choose_threshold, held_out_result, operating_points
+from pixelfit.evaluate import (
+    Spec,
+    answer,
+    choose_threshold,
+    held_out_result,
+    lower_bound,
+    operating_points,
+    parse_spec,
+    patches_needed,
+    verdict,
+)
 
 # ---- parsing --------------------------------------------------------------------------------
 

@@ -6,6 +6,8 @@ machines without a display or without Qt installed.
 
 from __future__ import annotations
 
+from pixelfit.app._screen import environment_problem, explain_qt_failure, probe_problem  # no Qt in these
+
 
 def launch(path: str | None = None, argv: list[str] | None = None) -> int:
     """Open the main window (on ``path`` when given) and run the event loop; returns its exit code.
@@ -19,4 +21,4 @@ def launch(path: str | None = None, argv: list[str] | None = None) -> int:
     return run_application(path, argv)
 
 
-__all__ = ["launch"]
+__all__ = ["environment_problem", "explain_qt_failure", "launch", "probe_problem"]
