@@ -51,8 +51,8 @@ def test_positions_follow_the_chosen_axis_and_spread_coincident_rungs(session):
         pos = s.ladder_positions()
         assert set(pos) == {r.key for r in s.rungs}
         for r in s.rungs:
-            expect = len(r.pixels) if axis == "pixels" and r.pixels is not None else \
-                n if axis == "pixels" else r.figures["parameters"]
+            expect = {"pixels": n if r.pixels is None else len(r.pixels), "parameters": r.figures["parameters"],
+                      "flash": r.cost["flash_bytes"]}[axis]
             assert pos[r.key][0] == expect
         # No two rungs share a position; rungs of one value sit side by side around it.
         xs = [x for _, x in pos.values()]

@@ -70,6 +70,8 @@ MAP_KINDS = {"native": "the rung's own map", "permutation": "permutation (held-o
 LADDER_AXES: dict[str, tuple[str, Callable[[Rung, int], float | None]]] = {
     "pixels": ("pixels read", lambda r, p: float(p if r.pixels is None else len(r.pixels))),
     "parameters": ("parameters", lambda r, p: float(r.figures["parameters"])),
+    "flash": ("flash bytes of the integer-only C export",
+              lambda r, p: None if not r.cost else float(r.cost["flash_bytes"])),
 }
 #: Horizontal distance between rungs of different families that fall on one x value, in units of
 #: the plot's log2 spacing: enough to click each on its own.
