@@ -11,6 +11,7 @@ its exact cost). Importing this package never loads scikit-learn.
 from __future__ import annotations
 
 import math
+from abc import ABC, abstractmethod
 from dataclasses import dataclass
 
 import numpy as np
@@ -194,7 +195,7 @@ def fixed(values, frac_bits: int, dtype=np.int64) -> np.ndarray:
 # the interfaces
 
 
-class IntegerModel:
+class IntegerModel(ABC):
     """The predictor that ships: integers only, the same arithmetic in numpy and in C.
 
     Attributes
@@ -208,20 +209,21 @@ class IntegerModel:
     tables: list[CTable]
     facts: dict
 
+    @abstractmethod
     def predict(self, X: np.ndarray) -> np.ndarray:
         """True where the patch is called positive; X of shape (n, n_pixels), 0/1."""
-        raise NotImplementedError
 
+    @abstractmethod
     def c_code(self, ident: str, P: str) -> str:
         """The body of ``<ident>_predict(const uint8_t patch[P_PIXELS])``."""
-        raise NotImplementedError
 
+    @abstractmethod
     def ram_bytes(self) -> int:
         """Bytes of the predict function's local variables, as declared."""
-        raise NotImplementedError
 
+    @abstractmethod
     def ops(self) -> dict:
-        raise NotImplementedError
+        """Worst-case operations of one prediction: pixel_reads, additions, multiplications, comparisons."""
 
     def cost(self) -> dict:
         """{'flash_bytes', 'ram_bytes', 'ops'} of this predictor as the C export lays it out."""
@@ -229,23 +231,23 @@ class IntegerModel:
                 "ops": self.ops()}
 
 
-class Model:
+class Model(ABC):
     """A family's ``model`` section decoded into arrays; predicts with numpy alone."""
 
     scored: bool = True
 
+    @abstractmethod
     def decide(self, X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(score, label) per patch of 0/1 rows X (n, n_pixels), in floating point."""
-        raise NotImplementedError
 
+    @abstractmethod
     def pixels_used(self) -> list[int] | None:
         """Flat indices the model reads; None when it reads the whole patch."""
-        raise NotImplementedError
 
+    @abstractmethod
     def integer(self, threshold: float | None = None) -> IntegerModel:
         """The integer-only predictor at ``threshold`` (call positive when score > it; None: the
         model's own decision)."""
-        raise NotImplementedError
 
     def explain(self, x: np.ndarray, shape: tuple[int, int], threshold: float) -> dict:
         """Why the model scores one patch as it does, as plain JSON-ready data.
@@ -299,7 +301,7 @@ def linear_explanation(pixels: np.ndarray, weights: np.ndarray, bias: float, x: 
             "note": "score = 1 / (1 + exp(-(bias + sum of contributions))); a dark pixel contributes 0"}
 
 
-class Family:
+class Family(ABC):
     """One model family of the ladder: its size axis, its estimator, and how it is written.
 
     Subclasses set the class attributes and implement the methods; one module per family.
@@ -334,19 +336,21 @@ class Family:
 
     # -- the trained side (scikit-learn is imported inside these methods only) ----------------
 
+    @abstractmethod
     def default_sizes(self, n_pixels: int) -> list[int]:
-        raise NotImplementedError
+        """The sizes tried by default on patches of ``n_pixels`` pixels."""
 
+    @abstractmethod
     def make(self, size: int, n_pixels: int, seed: int):
         """An unfitted scikit-learn compatible estimator of this size."""
-        raise NotImplementedError
 
+    @abstractmethod
     def size_figures(self, est, size: int, n_pixels: int) -> dict:
-        raise NotImplementedError
+        """Parameters, log2 class size (finite classes) and VC dimension of a fitted estimator."""
 
+    @abstractmethod
     def section(self, est, shape: tuple[int, int]) -> dict:
         """The family's own fields of the rule file's ``model`` section."""
-        raise NotImplementedError
 
     def native_importance(self, est, X: np.ndarray, y: np.ndarray, shape: tuple[int, int]) -> np.ndarray | None:
         """The family's own per-pixel importance, of shape ``shape``; None where it has none."""
@@ -362,10 +366,10 @@ class Family:
 
     # -- the file side (numpy only) -------------------------------------------------------------
 
+    @abstractmethod
     def decode(self, m: dict, shape: tuple[int, int]) -> Model:
         """Build the :class:`Model` from a schema-valid ``model`` section, checking what the
         schema cannot (shapes, ranges); raises RuleFileError naming the field."""
-        raise NotImplementedError
 
 
 class SparseLinearInteger(IntegerModel):
