@@ -13,6 +13,13 @@ DEFAULT_MAX_SIZE: int | None = None
 #: Cross-validation folds on the training part.
 DEFAULT_FOLDS = 5
 
+# Large sets: the slow families train on a stratified subsample of the training part.
+#: Training patches above which the families in SUBSAMPLED_FAMILIES train on a stratified subsample
+#: of this many (CV folds, final fit and the checks' refits); the held-out part is always used whole.
+SUBSAMPLE_PATCHES = 100_000
+#: The families whose training time grows fastest with the number of patches.
+SUBSAMPLED_FAMILIES = ("logistic", "mlp")
+
 # Defaults the command line shows before it imports the core (pixelfit.robustness uses them).
 #: Bootstrap replicates per rung of the bias-variance decomposition.
 DEFAULT_REPLICATES = 5

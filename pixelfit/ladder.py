@@ -20,6 +20,7 @@ from sklearn.exceptions import ConvergenceWarning
 from sklearn.model_selection import StratifiedGroupKFold, StratifiedKFold
 from threadpoolctl import threadpool_limits
 
+from pixelfit.conventions import SUBSAMPLE_PATCHES, SUBSAMPLED_FAMILIES
 from pixelfit.data import (
     SPLIT_METHODS,
     Binarizer,
@@ -198,6 +199,8 @@ class Rung:
     quantized: dict | None = None
     #: the rung decoded as its rule file holds it (numpy only): what it reads, its integer predictor
     model: Model | None = None
+    #: ``{n, of}`` when the rung trained on a stratified subsample of n of the ``of`` training patches
+    subsample: dict | None = None
 
     @property
     def key(self) -> str:
@@ -238,6 +241,7 @@ class Rung:
             "quantized": self.quantized,
             "pixels": None if self.pixels is None else [[i // w, i % w] for i in self.pixels],
             "notes": self.notes,
+            "subsample": self.subsample,
             "seconds": round(self.seconds, 3),
         }
 
@@ -324,6 +328,41 @@ def _score(est, X) -> np.ndarray | None:
     return proba[:, -1] if proba.shape[1] == 2 else np.zeros(len(X))
 
 
+def stratified_subsample(y: np.ndarray, n: int, seed: int) -> np.ndarray:
+    """``n`` row indices of ``y`` (sorted), drawn without replacement, each class in its share.
+
+    Each class gets ``n * (its count) / len(y)`` rows, rounded by largest remainder (so the counts
+    add up to ``n``), and at least one row when ``n`` leaves room for every class.
+    """
+    y = np.asarray(y)
+    if n >= len(y):
+        return np.arange(len(y))
+    classes, inverse = np.unique(y, return_inverse=True)
+    counts = np.bincount(inverse)
+    share = counts * n / len(y)
+    take = np.maximum(np.floor(share).astype(int), np.minimum(counts, 1))
+    for c in np.argsort(-(share - np.floor(share)), kind="stable")[:max(0, n - int(take.sum()))]:
+        take[c] += 1
+    while take.sum() > n:  # the rare classes' one row each came from the largest
+        take[np.argmax(take)] -= 1
+    rng = np.random.default_rng(seed)
+    rows = [rng.choice(np.flatnonzero(inverse == c), int(take[c]), replace=False) for c in range(len(classes))]
+    return np.sort(np.concatenate(rows))
+
+
+def subsample_for(family: str, y: np.ndarray, seed: int) -> np.ndarray | None:
+    """The training rows ``family`` trains on when the training part is over :data:`SUBSAMPLE_PATCHES`
+    (a stratified subsample of that many), None when it trains on all of them."""
+    if family not in SUBSAMPLED_FAMILIES or len(y) <= SUBSAMPLE_PATCHES:
+        return None
+    return stratified_subsample(y, SUBSAMPLE_PATCHES, seed)
+
+
+def subsample_note(n: int, of: int) -> str:
+    return (f"trained on a stratified subsample of {n:,} of the {of:,} training patches "
+            f"(this family above {SUBSAMPLE_PATCHES:,}); held-out figures use every held-out patch")
+
+
 def train_rung(prep: Prepared, family: str, size: int, folds: int = 5, seed: int = 0,
                cancel: CancelFn | None = None, exhaustive: bool = False) -> Rung:
     """Fit one rung on the training part, cross-validate it there, measure it on the held-out part."""
@@ -345,7 +384,13 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     fam = FAMILIES[family]
     t0 = time.perf_counter()
     notes: list[str] = []
-    X, y = prep.X_train, prep.y_train
+    X_all, y_all = prep.X_train, prep.y_train
+    X, y, groups = X_all, y_all, prep.train_groups
+    sub = subsample_for(family, y_all, seed)
+    if sub is not None:  # everything fitted below sees the subsample; the held-out part stays whole
+        X, y = X_all[sub], y_all[sub]
+        groups = None if groups is None else groups[sub]
+        notes.append(subsample_note(len(sub), len(y_all)))
     template = fam.make(size, prep.n_pixels, seed)
     plan = None
     if isinstance(template, LutRule):
@@ -363,7 +408,6 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     oof = np.full(len(y), np.nan)
     if folds:
         f1s, errs = [], []
-        groups = prep.train_groups
         if groups is None:
             splits = StratifiedKFold(n_splits=folds, shuffle=True, random_state=seed).split(X, y)
         else:  # identical grey patches stay in one fold, so no fold validates on its own training copy
@@ -403,10 +447,19 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     # Every family gives a score (the constant's is its training rate); see pixelfit.evaluate._spec
     # for the one decision rule, score > threshold.
     test_scores = _score(est, prep.X_test)
+    if sub is not None and test_scores is not None:
+        # The training patches outside the subsample were never fitted: the final model's scores on
+        # them are out of sample too, so every training patch keeps an out-of-sample score.
+        whole = np.full(len(y_all), np.nan)
+        whole[sub] = oof
+        rest = np.ones(len(y_all), bool)
+        rest[sub] = False
+        whole[rest] = _scores_of(est, X_all[rest])
+        oof = whole
     operating = choice = chosen_on = None
     if test_scores is not None:
         chosen_on = "cv" if folds and not np.isnan(oof).any() else "train"
-        choice = oof if chosen_on == "cv" else _scores_of(est, X)
+        choice = oof if chosen_on == "cv" else _scores_of(est, X_all)
         operating = {"test_points": operating_points(prep.y_test, test_scores)}
     search = fam.search_facts(est)
     if plan is not None:
@@ -414,7 +467,8 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     oof_ok = folds and not np.isnan(oof).any()
     rung = Rung(family, size, est, train, test, cv, figures, bound, used, importance, test_pred, test_scores,
                 operating, search, oof if oof_ok else None, notes=notes,
-                seconds=time.perf_counter() - t0, choice_scores=choice, chosen_on=chosen_on, model=model)
+                seconds=time.perf_counter() - t0, choice_scores=choice, chosen_on=chosen_on, model=model,
+                subsample=None if sub is None else {"n": len(sub), "of": len(y_all)})
     measure_integer(rung, prep.X_test, prep.y_test)
     return rung
 

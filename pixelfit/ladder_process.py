@@ -14,9 +14,16 @@ fresh interpreter needs one to two seconds for that); ``spawn`` elsewhere. ``for
 forking a process that runs other threads (a GUI's, BLAS's) can deadlock the child.
 :func:`warm_up` starts the server ahead of the first run.
 
-What crosses the pipe is plain data: the prepared training and held-out matrices go in (the raw
+What crosses the pipe is plain data: a small description of the prepared set goes in (the raw
 grey images stay behind), :class:`Progress` records come out, pickled by :mod:`multiprocessing`
-between two processes of the same program. Nothing a user hands in is unpickled.
+between two processes of the same program. Nothing a user hands in is unpickled. The large arrays
+(the training and held-out matrices, their labels, the split mask and duplicate groups, the grey
+held-out patches for the stress tests) do not cross the pipe: the caller copies them once into one
+block of shared memory (:class:`SharedArrays`), which the child maps read-only. The caller unlinks
+the block when the run ends, however it ends (finished, refused, cancelled, trainer killed, the
+generator left early); if the caller itself dies, multiprocessing's resource tracker unlinks it.
+Where the shared-memory file system has too little room for the block (a small ``/dev/shm`` in a
+container), the arrays are pickled to the child as before.
 """
 
 from __future__ import annotations
@@ -24,10 +31,14 @@ from __future__ import annotations
 import dataclasses
 import multiprocessing
 import multiprocessing.connection
+import os
+import secrets
+import shutil
 import threading
 import time
 import traceback
 from collections.abc import Iterator
+from multiprocessing import shared_memory
 from typing import Any
 
 import numpy as np
@@ -86,18 +97,118 @@ def warm_up() -> None:
 
 
 def slim(prep: Prepared) -> Prepared:
-    """``prep`` without the raw grey images, names and split mask: what a trainer needs, no more."""
+    """``prep`` without the raw grey images, names and data check: what a trainer needs, no more.
+
+    The split mask and duplicate groups stay: cross-validation keeps identical grey patches in one
+    fold through :attr:`Prepared.train_groups`, which reads both.
+    """
     h, w = prep.shape
     ds = prep.dataset
     bare = Dataset(images=np.empty((0, h, w), np.uint8), labels=np.empty(0, dtype=ds.labels.dtype), names=[],
                    source=ds.source, layout=ds.layout)
-    return dataclasses.replace(prep, dataset=bare, test_mask=np.empty(0, dtype=bool))
+    return dataclasses.replace(prep, dataset=bare, check=None)
+
+
+#: The fields of :class:`Prepared` that travel through shared memory rather than the pipe.
+SHARED_FIELDS = ("X_train", "y_train", "X_test", "y_test", "test_mask", "groups")
+#: Offsets of the arrays in the block are multiples of this (bytes): cache-line aligned.
+_ALIGN = 64
+#: Shared-memory block names start with this, then the creating process's id.
+SHM_PREFIX = "pixelfit-"
+
+
+class SharedArrays:
+    """Named arrays copied once into one shared-memory block, for a child process to map.
+
+    Parameters
+    ----------
+    arrays : dict of str to ndarray
+        copied in the caller; ``layout`` (name, dtype, shape, offset per array) and ``name`` (the
+        block's) are what the child needs to find them again with :meth:`attach`.
+
+    The creator calls :meth:`release` when the child has ended: it unmaps and unlinks the block.
+    """
+
+    def __init__(self, arrays: dict[str, np.ndarray]):
+        layout, size = [], 0
+        for key, a in arrays.items():
+            a = np.ascontiguousarray(a)
+            layout.append((key, a.dtype.str, a.shape, size))
+            size += -(-a.nbytes // _ALIGN) * _ALIGN
+        self.layout: list[tuple[str, str, tuple[int, ...], int]] = layout
+        self.nbytes = size
+        self._shm: shared_memory.SharedMemory | None = shared_memory.SharedMemory(
+            name=f"{SHM_PREFIX}{os.getpid()}-{secrets.token_hex(6)}", create=True, size=max(size, 1))
+        self.name = self._shm.name
+        try:
+            for key, dtype, shape, offset in layout:
+                view = np.ndarray(shape, dtype, buffer=self._shm.buf, offset=offset)
+                view[...] = arrays[key]
+                del view  # no view may outlive the mapping, or closing it fails
+        except BaseException:
+            self.release()
+            raise
+
+    @staticmethod
+    def fits(nbytes: int) -> bool:
+        """Whether a block of ``nbytes`` fits in the shared-memory file system's free room.
+
+        Writing past a full ``/dev/shm`` kills the writer (SIGBUS) rather than raising, so look first.
+        """
+        root = "/dev/shm"
+        if not os.path.isdir(root):
+            return True  # no such file system to fill (macOS, Windows: the system pages the block)
+        return shutil.disk_usage(root).free > nbytes + (64 << 20)
+
+    @staticmethod
+    def attach(name: str, layout: list[tuple[str, str, tuple[int, ...], int]]
+               ) -> tuple[shared_memory.SharedMemory, dict[str, Any]]:
+        """In the child: map the block and return it with read-only views of its arrays."""
+        shm = shared_memory.SharedMemory(name=name)
+        views: dict[str, Any] = {}
+        for key, dtype, shape, offset in layout:
+            v = np.ndarray(shape, dtype, buffer=shm.buf, offset=offset)
+            v.flags.writeable = False
+            views[key] = v
+        return shm, views
+
+    def release(self) -> None:
+        """Unmap and unlink the block; safe to call more than once."""
+        shm, self._shm = self._shm, None
+        if shm is None:
+            return
+        try:
+            shm.close()
+        finally:
+            try:
+                shm.unlink()
+            except FileNotFoundError:
+                pass
+
+
+def _child_args(prep: Prepared, grey_test: np.ndarray | None) -> tuple[Prepared, np.ndarray | None, SharedArrays | None]:
+    """What the child is handed: the slim ``prep`` (and ``grey_test``), its large arrays shared when they fit."""
+    shell = slim(prep)
+    arrays = {k: getattr(shell, k) for k in SHARED_FIELDS if getattr(shell, k) is not None}
+    if grey_test is not None:
+        arrays["grey_test"] = grey_test
+    if not SharedArrays.fits(sum(np.asarray(a).nbytes for a in arrays.values())):
+        return shell, grey_test, None
+    shared = SharedArrays(arrays)
+    empty: dict[str, Any] = {k: np.empty((0,) + np.shape(a)[1:], np.asarray(a).dtype) for k, a in arrays.items()}
+    grey_stub = empty.pop("grey_test", None)
+    return dataclasses.replace(shell, **empty), grey_stub, shared
 
 
 def _serve(conn: multiprocessing.connection.Connection, prep: Prepared, rungs: list[tuple[str, int]], folds: int,
            seed: int, scheduler: str | None = None, checks: CheckSettings | None = None,
-           grey_test: np.ndarray | None = None) -> None:
-    """The trainer's main: run the ladder, send each record, stop when asked. Runs in the child."""
+           grey_test: np.ndarray | None = None,
+           shared: tuple[str, list[tuple[str, str, tuple[int, ...], int]]] | None = None) -> None:
+    """The trainer's main: run the ladder, send each record, stop when asked. Runs in the child.
+
+    ``shared``: the name and layout of a :class:`SharedArrays` block holding ``prep``'s large arrays
+    (and ``grey_test``), which then arrive here empty.
+    """
     asked = [False]
 
     def cancel() -> bool:
@@ -110,6 +221,11 @@ def _serve(conn: multiprocessing.connection.Connection, prep: Prepared, rungs: l
 
     try:
         try:
+            if shared is not None:
+                # ``_block`` stays referenced until this function returns: the views read its mapping.
+                _block, views = SharedArrays.attach(*shared)
+                grey_test = views.pop("grey_test", grey_test)
+                prep = dataclasses.replace(prep, **views)
             finished = []
             for pr in run_ladder(prep, rungs, folds, seed, cancel, scheduler=scheduler):
                 conn.send(("progress", pr))
@@ -159,15 +275,25 @@ def run_ladder_in_process(prep: Prepared, rungs: list[tuple[str, int]], folds: i
     generator early (``close()``, garbage collection) stops the child; it never outlives the call.
     """
     ctx = _get_context()
+    shell, grey_arg, shared = _child_args(prep, grey_test)
     here, there = ctx.Pipe(duplex=True)
     proc = ctx.Process(target=_serve, name="pixelfit-trainer", daemon=True,
-                       args=(there, slim(prep), list(rungs), folds, seed, scheduler, checks, grey_test))
+                       args=(there, shell, list(rungs), folds, seed, scheduler, checks, grey_arg,
+                             None if shared is None else (shared.name, shared.layout)))
     try:
         proc.start()
     except OSError as exc:  # the new process died before it took its work
         there.close()
         here.close()
+        if shared is not None:
+            shared.release()
         raise TrainerLost(f"could not start the training process ({exc}); {MAIN_GUARD_HINT}") from exc
+    except BaseException:
+        there.close()
+        here.close()
+        if shared is not None:
+            shared.release()
+        raise
     there.close()
     asked_at: float | None = None
     heard = False
@@ -206,7 +332,11 @@ def run_ladder_in_process(prep: Prepared, rungs: list[tuple[str, int]], folds: i
             else:
                 raise TrainerLost(f"the training process failed: {payload}")
     finally:
-        _stop(proc, here, grace)
+        try:
+            _stop(proc, here, grace)
+        finally:
+            if shared is not None:
+                shared.release()
 
 
 def _stop(proc, conn, grace: float) -> None:

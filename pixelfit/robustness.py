@@ -38,7 +38,7 @@ from pixelfit.data import Binarizer, grey_perturbations, stuck_pixel, with_shift
 from pixelfit.errors import PixelfitError
 from pixelfit.evaluate import bias_variance_01, detection_metrics, last_segment_slope
 from pixelfit.families import FAMILIES
-from pixelfit.ladder import CancelFn, LadderCancelled, Prepared, Progress, Rung
+from pixelfit.ladder import CancelFn, LadderCancelled, Prepared, Progress, Rung, stratified_subsample
 from pixelfit.models import LutRule, SearchCancelled
 
 #: Training fractions of the learning curve.
@@ -277,6 +277,8 @@ def _checks(prep: Prepared, rungs: list[Rung], grey_test, recommended, settings:
             preds = np.empty((B, len(prep.y_test)), bool)
             for b, idx in enumerate(draws):
                 stop()
+                if r.subsample is not None:  # the rung's own procedure: a stratified subsample of the draw
+                    idx = idx[stratified_subsample(y[idx], r.subsample["n"], seed + b)]
                 preds[b] = _predict(_fit(clone(template), X[idx], y[idx], cancel), prep.X_test)
                 done += 1
                 if b + 1 < B:
@@ -304,7 +306,9 @@ def _learning_curve(prep, lc_rungs, splits, out: Checks, seed, done, total, stop
         cv = np.full((len(splits), len(FRACTIONS)), np.nan)
         test = np.full_like(cv, np.nan)
         for i, (tr, va) in enumerate(splits):
-            for j, n in enumerate(curve_sizes(len(tr))):
+            # A subsampled rung's curve spans the sizes it is trained at: fractions of its subsample.
+            cap = len(tr) if r.subsample is None else min(len(tr), r.subsample["n"])
+            for j, n in enumerate(curve_sizes(cap)):
                 stop()
                 rows = tr[:n]
                 try:

@@ -9,6 +9,9 @@ from dataclasses import dataclass
 from pixelfit.families import FAMILIES
 from pixelfit.models import BEAM_MARK, BEAM_NOTE, is_beam
 
+#: Appended to the rung's name in the table when it trained on a subsample of the training part.
+SUBSAMPLE_MARK = " (subsample)"
+
 
 def fmt(v, digits: int = 3) -> str:
     if v is None:
@@ -98,8 +101,10 @@ FIELDS: list[Field] = [
 
 #: The columns of the rung table, from a rung's entry in summary.json.
 COLUMNS: list[Column] = [
-    Column("rung", "family-size; (beam) marks a truth table found by a beam search, not by trying every pixel set",
-           lambda r: f"{r['family']}-{r['size']}" + (BEAM_MARK if is_beam(r.get("search")) else "")),
+    Column("rung", "family-size; (beam) marks a truth table found by a beam search, not by trying every pixel set; "
+           "(subsample) a rung trained on a stratified subsample of the training part",
+           lambda r: f"{r['family']}-{r['size']}" + (BEAM_MARK if is_beam(r.get("search")) else "")
+           + (SUBSAMPLE_MARK if r.get("subsample") else "")),
     Column("size", "the family's size: pixels read, tree depth or hidden units",
            lambda r: (FAMILIES[r["family"]].size_text(r["size"]) or "-") if r["family"] in FAMILIES
            else str(r["size"])),
@@ -145,7 +150,17 @@ def ladder_table(summary: dict) -> str:
                  "(McNemar, p < 0.05)")
     if any(is_beam(r.get("search")) for r in summary["rungs"]):
         lines.append(BEAM_NOTE)
+    sub = next((r["subsample"] for r in summary["rungs"] if r.get("subsample")), None)
+    if sub is not None:
+        lines.append(subsample_footnote(sub["n"], sub["of"]))
     return "\n".join(lines)
+
+
+def subsample_footnote(n: int, of: int) -> str:
+    """The table's line under rungs marked (subsample)."""
+    return (f"(subsample) trained (CV folds and final fit) on a stratified subsample of {n:,} of the {of:,} "
+            f"training patches, to keep a large set's slow families in time; train F1 and the bound are on "
+            f"the subsample, held-out figures on every held-out patch")
 
 
 def spec_table(summary: dict) -> str:

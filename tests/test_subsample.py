@@ -1,0 +1,89 @@
+"""Large sets: the slow families train on a stratified subsample of the training part, and say so."""
+
+import json
+
+import numpy as np
+import pytest
+from conftest import make_patches
+
+import pixelfit.ladder as ladder
+from pixelfit.cli import main
+from pixelfit.conventions import SUBSAMPLE_PATCHES, SUBSAMPLED_FAMILIES
+from pixelfit.data import Binarizer, Dataset
+from pixelfit.ladder import prepare, run_ladder, stratified_subsample, subsample_for
+from pixelfit.robustness import CheckSettings, run_checks
+from pixelfit.text import SUBSAMPLE_MARK, ladder_table
+
+
+@pytest.mark.parametrize("n", [1, 7, 50, 99])
+def test_stratified_subsample_by_definition(n):
+    y = np.array([0] * 70 + [1] * 25 + [2] * 5)
+    rows = stratified_subsample(y, n, seed=4)
+    assert len(rows) == n and len(np.unique(rows)) == n and np.all(np.diff(rows) > 0)
+    counts = np.bincount(y[rows], minlength=3)
+    share = np.bincount(y) * n / len(y)  # each class its share, rounded (and at least one when there is room)
+    if n >= 3:  # room for every class
+        assert np.all(np.abs(counts - share) < 1) and counts.min() >= 1
+    assert np.array_equal(rows, stratified_subsample(y, n, seed=4))  # seeded
+    assert np.array_equal(stratified_subsample(y, 200, seed=4), np.arange(100))  # larger than the set: all rows
+
+
+def test_only_the_slow_families_above_the_threshold():
+    y = np.zeros(SUBSAMPLE_PATCHES + 1, bool)
+    y[::3] = True
+    assert set(SUBSAMPLED_FAMILIES) == {"logistic", "mlp"}
+    assert len(subsample_for("mlp", y, 0)) == SUBSAMPLE_PATCHES
+    assert subsample_for("lut", y, 0) is None and subsample_for("tree", y, 0) is None
+    assert subsample_for("mlp", y[:SUBSAMPLE_PATCHES], 0) is None  # at the threshold: every patch
+
+
+@pytest.fixture
+def small_threshold(monkeypatch):
+    monkeypatch.setattr(ladder, "SUBSAMPLE_PATCHES", 90)
+
+
+def test_a_subsampled_rung_fits_the_subsample_and_is_measured_on_all_held_out(rng, small_threshold):
+    imgs, labels = make_patches(rng, n=240)
+    prep = prepare(Dataset(imgs, labels, [], "generated", "npz"), Binarizer("otsu"), seed=2, split="stratified")
+    n_train, n_test = len(prep.y_train), len(prep.y_test)
+    rungs = {pr.rung.key: pr.rung for pr in run_ladder(prep, [("lut", 2), ("logistic", 2), ("mlp", 2)], folds=3)
+             if pr.rung}
+    assert rungs["lut-2"].subsample is None and not any("subsample" in n for n in rungs["lut-2"].notes)
+    for key in ("logistic-2", "mlp-2"):
+        r = rungs[key]
+        assert r.subsample == {"n": 90, "of": n_train}
+        assert any("stratified subsample of 90 of the" in n for n in r.notes)
+        assert sum(r.train[k] for k in ("tp", "fp", "fn", "tn")) == 90
+        assert sum(r.test[k] for k in ("tp", "fp", "fn", "tn")) == n_test
+        # every training patch keeps an out-of-sample score: out-of-fold, or never fitted at all
+        assert r.chosen_on == "cv" and len(r.choice_scores) == n_train and not np.isnan(r.choice_scores).any()
+        assert r.summary(prep.shape)["subsample"] == {"n": 90, "of": n_train}
+        # the final model is the one trained on the subsample: refit it there and compare
+        sub = stratified_subsample(prep.y_train, 90, 0)
+        from sklearn.base import clone
+
+        again = clone(r.estimator).fit(prep.X_train[sub], prep.y_train[sub])
+        assert np.array_equal(again.predict(prep.X_test), r.test_pred)
+    summary = {"rungs": [r.summary(prep.shape) for r in rungs.values()]}
+    table = ladder_table(summary)
+    assert f"mlp-2{SUBSAMPLE_MARK}" in table and "lut-2 " in table and f"lut-2{SUBSAMPLE_MARK}" not in table
+    assert f"stratified subsample of 90 of the {n_train:,} training patches" in table
+    # the checks refit a subsampled rung on subsamples too, and finish
+    checks = None
+    for pr in run_checks(prep, list(rungs.values()), None, rungs["lut-2"], CheckSettings(bias_variance=2)):
+        checks = pr.checks or checks
+    assert checks is not None and checks.bias_variance["mlp-2"] is not None
+
+
+def test_fit_says_so_in_summary_json_and_the_table(npz_file, tmp_path, capsys, monkeypatch):
+    monkeypatch.setattr(ladder, "SUBSAMPLE_PATCHES", 40)
+    out = tmp_path / "run"
+    assert main(["fit", str(npz_file), "--out", str(out), "--families", "constant,logistic", "--sizes",
+                 "logistic=1", "--folds", "2", "--bias-variance", "0"]) == 0
+    s = json.loads((out / "summary.json").read_text())
+    by = {r["family"]: r for r in s["rungs"]}
+    assert by["constant"]["subsample"] is None
+    assert by["logistic"]["subsample"] == {"n": 40, "of": s["split"]["n_train"]}
+    assert any("stratified subsample of 40" in n for n in by["logistic"]["notes"])
+    text = capsys.readouterr().out
+    assert f"logistic-1{SUBSAMPLE_MARK}" in text and "(subsample) trained" in text
