@@ -234,15 +234,7 @@ def decomposition_png(curves: dict[str, list[tuple[float, dict | None]]], size_n
         log_x = len(sizes) > 2 and sizes[0] > 0 and sizes[-1] / sizes[0] > 8
         xs = np.log2(sizes) if log_x else np.asarray(sizes, float)
         px = _x_axis(left + 6, right - 6, float(xs.min()), float(xs.max()), log_x)
-        unit = _y_axis(top, bottom)
-
-        def py(e: float, unit=unit) -> float:
-            return unit(e / top_v)
-
-        for k in range(5):
-            e = top_v * k / 4
-            d.line([(left, py(e)), (right, py(e))], fill=(235, 235, 235))
-            _text(d, (ox + 4, py(e) - 6), f"{e:.3g}", fill=(90, 90, 90), font=font)
+        py = _error_grid(d, font, ox, left, right, top, bottom, top_v)
         for s in sizes:
             _text(d, (px(s) - 6, bottom + 4), str(s), fill=(90, 90, 90), font=font)
         _text(d, (right - 70, bottom + 14), size_names.get(fam, "size"), fill=(90, 90, 90), font=font)
@@ -255,6 +247,20 @@ def decomposition_png(curves: dict[str, list[tuple[float, dict | None]]], size_n
         if not pts:
             _text(d, (left + 8, top + 8), "not measured", fill=(120, 120, 120), font=font)
     return _png(im)
+
+
+def _error_grid(d, font, ox: int, left: int, right: int, top: int, bottom: int, top_v: float):
+    """Draw a panel's error axis (0 to ``top_v``, five grid lines with labels); returns error -> y."""
+    unit = _y_axis(top, bottom)
+
+    def py(e: float) -> float:
+        return unit(e / top_v)
+
+    for k in range(5):
+        e = top_v * k / 4
+        d.line([(left, py(e)), (right, py(e))], fill=(235, 235, 235))
+        _text(d, (ox + 4, py(e) - 6), f"{e:.3g}", fill=(90, 90, 90), font=font)
+    return py
 
 
 def learning_curve_png(curve: dict) -> bytes:
@@ -278,15 +284,7 @@ def learning_curve_png(curve: dict) -> bytes:
         _text(d, (ox + pad, oy + 2), key, fill=(0, 0, 0), font=font)
         d.rectangle([left, top, right, bottom], outline=(180, 180, 180))
         px = _x_axis(left + 6, right - 6, 0.0, 1.0, False)
-        unit = _y_axis(top, bottom)
-
-        def py(e: float, unit=unit) -> float:
-            return unit(e / top_v)
-
-        for k in range(5):
-            e = top_v * k / 4
-            d.line([(left, py(e)), (right, py(e))], fill=(235, 235, 235))
-            _text(d, (ox + 4, py(e) - 6), f"{e:.3g}", fill=(90, 90, 90), font=font)
+        py = _error_grid(d, font, ox, left, right, top, bottom, top_v)
         mine = [p for p in points if p["rung"] == key]
         for p in mine:
             _text(d, (px(p["fraction"]) - 8, bottom + 4), f"{p['fraction']:.0%}", fill=(90, 90, 90), font=font)

@@ -6,7 +6,7 @@ import math
 import time
 from collections.abc import Callable
 
-from pixelfit.app._qt import QtCore
+from pixelfit.app._qt import QtCore, QtWidgets
 from pixelfit.app.session import Session
 
 
@@ -72,3 +72,15 @@ class Throttled:
     def _fire(self) -> None:
         self._last = time.perf_counter()
         self.fn()
+
+
+def thumbnail_list(spacing: int = 2, min_height: int = 0) -> QtWidgets.QListWidget:
+    """A list of patch thumbnails laid out as a wrapping grid that does not let items be dragged."""
+    w = QtWidgets.QListWidget()
+    w.setViewMode(QtWidgets.QListView.ViewMode.IconMode)
+    w.setResizeMode(QtWidgets.QListView.ResizeMode.Adjust)
+    w.setMovement(QtWidgets.QListView.Movement.Static)
+    w.setSpacing(spacing)
+    if min_height:
+        w.setMinimumHeight(min_height)
+    return w

@@ -14,7 +14,7 @@ import numpy as np
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets
 from pixelfit.app.images import gray_qimage, side_by_side
 from pixelfit.app.session import Session
-from pixelfit.app.widgets import Listens
+from pixelfit.app.widgets import Listens, thumbnail_list
 from pixelfit.text import comparison_lines, explanation_lines
 
 #: Outline of a pixel the rule reads (on the enlarged grey patch and its bits).
@@ -118,8 +118,8 @@ class CompareView(Listens, QtWidgets.QDialog):
         self.test.setWordWrap(True)
         self.a_label = QtWidgets.QLabel("")
         self.b_label = QtWidgets.QLabel("")
-        self.a_list = self._thumbs()
-        self.b_list = self._thumbs()
+        self.a_list = thumbnail_list(3)
+        self.b_list = thumbnail_list(3)
         grid = QtWidgets.QGridLayout(self)
         grid.addWidget(self.left, 0, 0)
         grid.addWidget(self.right, 0, 1)
@@ -136,15 +136,6 @@ class CompareView(Listens, QtWidgets.QDialog):
         self.listen(session, "threshold", self.refresh)
         self.listen(session, "spec", self.refresh)  # a spec moves the rungs' thresholds
         self.refresh()
-
-    @staticmethod
-    def _thumbs() -> QtWidgets.QListWidget:
-        w = QtWidgets.QListWidget()
-        w.setViewMode(QtWidgets.QListView.ViewMode.IconMode)
-        w.setResizeMode(QtWidgets.QListView.ResizeMode.Adjust)
-        w.setMovement(QtWidgets.QListView.Movement.Static)
-        w.setSpacing(3)
-        return w
 
     def refresh(self) -> None:
         c = self.session.comparison()

@@ -9,7 +9,7 @@ import numpy as np
 from pixelfit.app._qt import QtCore, QtGui, QtWidgets, pg
 from pixelfit.app.images import gray_qimage, map_scale, side_by_side, signed_colormap
 from pixelfit.app.session import MAP_KINDS, Session, map_name
-from pixelfit.app.widgets import Listens, Throttled
+from pixelfit.app.widgets import Listens, Throttled, thumbnail_list
 from pixelfit.families import FAMILIES
 
 #: Thumbnails of misses shown per kind; the count says how many there are in all.
@@ -225,8 +225,8 @@ class RungInspector(Listens, QtWidgets.QWidget):
         self.stress = StressView()
         self.fp_label = QtWidgets.QLabel("")
         self.fn_label = QtWidgets.QLabel("")
-        self.fp_list = self._thumb_list()
-        self.fn_list = self._thumb_list()
+        self.fp_list = thumbnail_list(2, 70)
+        self.fn_list = thumbnail_list(2, 70)
         # Thumbnails of misses by dataset row: the same patches are missed by rung after rung.
         self._thumbs: tuple[object, dict[int, QtGui.QPixmap]] = (None, {})
 
@@ -304,16 +304,6 @@ class RungInspector(Listens, QtWidgets.QWidget):
         t.setVerticalScrollBarPolicy(QtCore.Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
         t.setHorizontalScrollBarPolicy(QtCore.Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
         t.setFixedHeight(t.horizontalHeader().sizeHint().height() + t.verticalHeader().length() + 2 * t.frameWidth())
-
-    @staticmethod
-    def _thumb_list() -> QtWidgets.QListWidget:
-        w = QtWidgets.QListWidget()
-        w.setViewMode(QtWidgets.QListView.ViewMode.IconMode)
-        w.setResizeMode(QtWidgets.QListView.ResizeMode.Adjust)
-        w.setMovement(QtWidgets.QListView.Movement.Static)
-        w.setSpacing(2)
-        w.setMinimumHeight(70)
-        return w
 
     def _rungs_changed(self) -> None:
         if self.session.selected is not None:  # marks (recommended, comparisons) may have moved
