@@ -30,6 +30,17 @@ def make_patches(rng, n: int = 120, shape=(8, 8), positive_share: float = 1 / 3)
     return imgs, labels
 
 
+def two_rule_patches(seed: int, n: int, positive: str, negative: str):
+    """6x6 grey patches (uint8) whose class is a two-pixel rule of their bits at 128, with 5 % of the
+    labels flipped; returns (images, labels)."""
+    r = np.random.default_rng(seed)
+    imgs = (r.random((n, 6, 6)) * 255).astype(np.uint8)
+    b = imgs > 127
+    noisy = r.random(n) < 0.05
+    lab = np.where(((b[:, 2, 3] & b[:, 4, 4]) | (b[:, 1, 1] & ~b[:, 2, 3])) ^ noisy, positive, negative)
+    return imgs, lab
+
+
 def write_class_folders(root: Path, imgs, labels) -> Path:
     for i, (img, lab) in enumerate(zip(imgs, labels)):
         d = root / lab

@@ -10,6 +10,7 @@ import subprocess
 
 import numpy as np
 import pytest
+from conftest import two_rule_patches
 
 from pixelfit.cli import main
 from pixelfit.data import Binarizer, Dataset
@@ -28,14 +29,9 @@ FAMILY_SIZES = [("constant", 0), ("lut", 3), ("nb", 4), ("logistic", 6), ("tree"
 
 @pytest.fixture(scope="module")
 def prepared():
-    rng = np.random.default_rng(11)
-    n = 400
-    imgs = (rng.random((n, 6, 6)) * 255).astype(np.uint8)
-    b = imgs > 127
-    noisy = rng.random(n) < 0.05
     # Class names a C comment must survive: a newline, a comment opener and closer, a control byte.
-    lab = np.where(((b[:, 2, 3] & b[:, 4, 4]) | (b[:, 1, 1] & ~b[:, 2, 3])) ^ noisy, "open\n/* lid */", "cap\x01??/")
-    ds = Dataset(imgs, lab, [f"#{i}" for i in range(n)], "generated", "npz")
+    imgs, lab = two_rule_patches(11, 400, "open\n/* lid */", "cap\x01??/")
+    ds = Dataset(imgs, lab, [f"#{i}" for i in range(len(imgs))], "generated", "npz")
     return prepare(ds, Binarizer.parse("fixed:128"), positive="open\n/* lid */")
 
 

@@ -4,6 +4,7 @@ import json
 
 import numpy as np
 import pytest
+from conftest import two_rule_patches
 
 from pixelfit.cli import main
 from pixelfit.data import Binarizer, Dataset
@@ -16,13 +17,8 @@ FAMILY_SIZES = [("constant", 0), ("lut", 3), ("nb", 4), ("logistic", 6), ("tree"
 
 @pytest.fixture(scope="module")
 def prepared():
-    rng = np.random.default_rng(7)
-    n = 500
-    imgs = (rng.random((n, 6, 6)) * 255).astype(np.uint8)
-    b = imgs > 127
-    noisy = rng.random(n) < 0.05
-    lab = np.where(((b[:, 2, 3] & b[:, 4, 4]) | (b[:, 1, 1] & ~b[:, 2, 3])) ^ noisy, "open", "capped")
-    ds = Dataset(imgs, lab, [f"#{i}" for i in range(n)], "generated", "npz")
+    imgs, lab = two_rule_patches(7, 500, "open", "capped")
+    ds = Dataset(imgs, lab, [f"#{i}" for i in range(len(imgs))], "generated", "npz")
     return prepare(ds, Binarizer.parse("fixed:128"))
 
 
