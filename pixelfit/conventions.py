@@ -13,12 +13,17 @@ DEFAULT_MAX_SIZE: int | None = None
 #: Cross-validation folds on the training part.
 DEFAULT_FOLDS = 5
 
-# Large sets: the slow families train on a stratified subsample of the training part.
-#: Training patches above which the families in SUBSAMPLED_FAMILIES train on a stratified subsample
-#: of this many (CV folds, final fit and the checks' refits); the held-out part is always used whole.
+# Large sets: the work that repeats a fit runs on a stratified subsample of the training part.
+#: Training patches above which every family's CV folds and the checks' refits (bias and variance,
+#: learning curve) run on a stratified subsample of this many, and the families in
+#: SUBSAMPLED_FAMILIES train their final fit on it too; the other families' final fit uses every
+#: training patch, and the held-out metrics every held-out patch.
 SUBSAMPLE_PATCHES = 100_000
 #: The families whose training time grows fastest with the number of patches.
 SUBSAMPLED_FAMILIES = ("logistic", "mlp")
+#: Held-out patches above which the permutation importance maps and the stress tests use a
+#: stratified subsample of this many (the held-out metrics always use every held-out patch).
+HELD_OUT_SAMPLE = 20_000
 
 # Defaults the command line shows before it imports the core (pixelfit.robustness uses them).
 #: Bootstrap replicates per rung of the bias-variance decomposition.

@@ -20,7 +20,7 @@ from sklearn.exceptions import ConvergenceWarning
 from sklearn.model_selection import StratifiedGroupKFold, StratifiedKFold
 from threadpoolctl import threadpool_limits
 
-from pixelfit.conventions import SUBSAMPLE_PATCHES, SUBSAMPLED_FAMILIES
+from pixelfit.conventions import HELD_OUT_SAMPLE, SUBSAMPLE_PATCHES, SUBSAMPLED_FAMILIES
 from pixelfit.data import (
     SPLIT_METHODS,
     Binarizer,
@@ -182,10 +182,13 @@ class Rung:
     test_scores: np.ndarray | None
     operating: dict | None
     search: dict | None = None
-    oof_scores: np.ndarray | None = None  # out-of-fold scores of the training patches, when every one has one
+    #: out-of-fold scores of the training patches when CV ran; NaN outside a large set's CV subsample
+    oof_scores: np.ndarray | None = None
     #: Scores the operating threshold is chosen on (out-of-fold CV scores, or training scores), and which.
     choice_scores: np.ndarray | None = None
     chosen_on: str | None = None
+    #: The labels of ``choice_scores`` (the training labels, or those of a large set's CV subsample).
+    choice_labels: np.ndarray | None = None
     #: The rung's entry for a spec (see :func:`pixelfit.evaluate.apply_spec`); None without one.
     spec: dict | None = None
     notes: list[str] = field(default_factory=list)
@@ -350,17 +353,53 @@ def stratified_subsample(y: np.ndarray, n: int, seed: int) -> np.ndarray:
     return np.sort(np.concatenate(rows))
 
 
+def training_sample(y: np.ndarray, seed: int) -> np.ndarray | None:
+    """The training rows a large set's repeated fits use: a stratified subsample of
+    :data:`SUBSAMPLE_PATCHES` when the training part is larger, None when every row is used.
+
+    Every family's CV folds and the checks' refits run on these rows, and the families in
+    :data:`SUBSAMPLED_FAMILIES` train their final fit on them too (the same rows for every rung).
+    """
+    if len(y) <= SUBSAMPLE_PATCHES:
+        return None
+    return stratified_subsample(y, SUBSAMPLE_PATCHES, seed)
+
+
 def subsample_for(family: str, y: np.ndarray, seed: int) -> np.ndarray | None:
     """The training rows ``family`` trains on when the training part is over :data:`SUBSAMPLE_PATCHES`
     (a stratified subsample of that many), None when it trains on all of them."""
-    if family not in SUBSAMPLED_FAMILIES or len(y) <= SUBSAMPLE_PATCHES:
+    if family not in SUBSAMPLED_FAMILIES:
         return None
-    return stratified_subsample(y, SUBSAMPLE_PATCHES, seed)
+    return training_sample(y, seed)
+
+
+def held_out_sample(y: np.ndarray, seed: int) -> np.ndarray | None:
+    """Held-out rows of the permutation importance maps and the stress tests: a stratified subsample
+    of :data:`HELD_OUT_SAMPLE` when the held-out part is larger, None when every row is used."""
+    if len(y) <= HELD_OUT_SAMPLE:
+        return None
+    return stratified_subsample(y, HELD_OUT_SAMPLE, seed)
+
+
+def sampling_facts(n_train: int, n_test: int) -> dict:
+    """What a run of this size computed on subsamples (``summary.json``'s ``sampling``): ``{n, of}``
+    per part, None where every patch was used."""
+    def part(n: int, cap: int) -> dict | None:
+        return {"n": cap, "of": n} if n > cap else None
+
+    return {"cv_and_checks": part(n_train, SUBSAMPLE_PATCHES),
+            "subsampled_families": list(SUBSAMPLED_FAMILIES) if n_train > SUBSAMPLE_PATCHES else [],
+            "importance_and_stress": part(n_test, HELD_OUT_SAMPLE)}
 
 
 def subsample_note(n: int, of: int) -> str:
     return (f"trained on a stratified subsample of {n:,} of the {of:,} training patches "
             f"(this family above {SUBSAMPLE_PATCHES:,}); held-out figures use every held-out patch")
+
+
+def cv_sample_note(n: int, of: int) -> str:
+    return (f"cross-validated on a stratified subsample of {n:,} of the {of:,} training patches "
+            f"(every family above {SUBSAMPLE_PATCHES:,}); the final fit uses all of them")
 
 
 def train_rung(prep: Prepared, family: str, size: int, folds: int = 5, seed: int = 0,
@@ -386,11 +425,17 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     notes: list[str] = []
     X_all, y_all = prep.X_train, prep.y_train
     X, y, groups = X_all, y_all, prep.train_groups
-    sub = subsample_for(family, y_all, seed)
+    rows = training_sample(y_all, seed)  # a large set: CV (and the slow families' fits) on these rows
+    sub = rows if family in SUBSAMPLED_FAMILIES else None
     if sub is not None:  # everything fitted below sees the subsample; the held-out part stays whole
         X, y = X_all[sub], y_all[sub]
         groups = None if groups is None else groups[sub]
         notes.append(subsample_note(len(sub), len(y_all)))
+    # The patches the CV folds split: the subsample on a large set, whatever the final fit uses.
+    Xc, yc, gc = X, y, groups
+    if rows is not None and sub is None:
+        Xc, yc = X_all[rows], y_all[rows]
+        gc = None if groups is None else groups[rows]
     template = fam.make(size, prep.n_pixels, seed)
     plan = None
     if isinstance(template, LutRule):
@@ -405,28 +450,31 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
         if notice:
             yield notice
     cv = None
-    oof = np.full(len(y), np.nan)
+    oof = np.full(len(yc), np.nan)
     if folds:
+        if rows is not None and sub is None:
+            notes.append(cv_sample_note(len(rows), len(y_all)))
         f1s, errs = [], []
-        if groups is None:
-            splits = StratifiedKFold(n_splits=folds, shuffle=True, random_state=seed).split(X, y)
+        if gc is None:
+            splits = StratifiedKFold(n_splits=folds, shuffle=True, random_state=seed).split(Xc, yc)
         else:  # identical grey patches stay in one fold, so no fold validates on its own training copy
-            splits = StratifiedGroupKFold(n_splits=folds, shuffle=True, random_state=seed).split(X, y, groups)
+            splits = StratifiedGroupKFold(n_splits=folds, shuffle=True, random_state=seed).split(Xc, yc, gc)
         for i, (tr, va) in enumerate(splits):
             if cancel is not None and cancel():
                 raise LadderCancelled
-            est = _fit(clone(template), X[tr], y[tr], cancel, notes)
-            pred = est.predict(X[va])
-            fold = detection_metrics(y[va], pred)
+            est = _fit(clone(template), Xc[tr], yc[tr], cancel, notes)
+            pred = est.predict(Xc[va])
+            fold = detection_metrics(yc[va], pred)
             f1s.append(fold["f1"] or 0.0)
             errs.append(1.0 - fold["accuracy"])
-            s = _score(est, X[va])
+            s = _score(est, Xc[va])
             if s is not None:
                 oof[va] = s
             yield f"{family}-{size}: fold {i + 1} of {folds}"
         cv = {"folds": folds, "f1_mean": float(np.mean(f1s)), "f1_std": float(np.std(f1s, ddof=1)),
               "f1_folds": [float(v) for v in f1s], "error_mean": float(np.mean(errs)),
-              "error_std": float(np.std(errs, ddof=1))}
+              "error_std": float(np.std(errs, ddof=1)),
+              "subsample": None if rows is None else {"n": len(rows), "of": len(y_all)}}
     if cancel is not None and cancel():
         raise LadderCancelled
     est = _fit(clone(template), X, y, cancel, notes)
@@ -440,13 +488,18 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     # The rung as its rule file will hold it: what it reads, and the integer predictor that ships.
     model = fam.decode(fam.model_section(est, size, prep.shape), prep.shape)
     used = model.pixels_used()
+    # Permutation importance repeats a prediction per pixel read: on a large held-out part, on a
+    # stratified subsample of it.
+    imp = held_out_sample(prep.y_test, seed)
+    X_imp, y_imp = (prep.X_test, prep.y_test) if imp is None else (prep.X_test[imp], prep.y_test[imp])
     importance = {
         "native": fam.native_importance(est, X, y, prep.shape),
-        "permutation": permutation_map(est, prep.X_test, prep.y_test, prep.shape, pixels=used, seed=seed),
+        "permutation": permutation_map(est, X_imp, y_imp, prep.shape, pixels=used, seed=seed),
     }
     # Every family gives a score (the constant's is its training rate); see pixelfit.evaluate._spec
     # for the one decision rule, score > threshold.
     test_scores = _score(est, prep.X_test)
+    choice_y = yc
     if sub is not None and test_scores is not None:
         # The training patches outside the subsample were never fitted: the final model's scores on
         # them are out of sample too, so every training patch keeps an out-of-sample score.
@@ -455,20 +508,29 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
         rest = np.ones(len(y_all), bool)
         rest[sub] = False
         whole[rest] = _scores_of(est, X_all[rest])
-        oof = whole
+        oof, choice_y = whole, y_all
     operating = choice = chosen_on = None
     if test_scores is not None:
         chosen_on = "cv" if folds and not np.isnan(oof).any() else "train"
-        choice = oof if chosen_on == "cv" else _scores_of(est, X_all)
+        if chosen_on == "train":
+            choice, choice_y = _scores_of(est, X_all), y_all
+        else:
+            choice = oof
         operating = {"test_points": operating_points(prep.y_test, test_scores)}
     search = fam.search_facts(est)
     if plan is not None:
         search = {**plan.as_dict(), **(search or {})}
     oof_ok = folds and not np.isnan(oof).any()
+    if oof_ok and len(oof) != len(y_all):  # CV on a large set's subsample: no score outside it
+        assert rows is not None
+        whole = np.full(len(y_all), np.nan)
+        whole[rows] = oof
+        oof = whole
     rung = Rung(family, size, est, train, test, cv, figures, bound, used, importance, test_pred, test_scores,
                 operating, search, oof if oof_ok else None, notes=notes,
                 seconds=time.perf_counter() - t0, choice_scores=choice, chosen_on=chosen_on, model=model,
-                subsample=None if sub is None else {"n": len(sub), "of": len(y_all)})
+                subsample=None if sub is None else {"n": len(sub), "of": len(y_all)},
+                choice_labels=None if choice is None else choice_y)
     measure_integer(rung, prep.X_test, prep.y_test)
     return rung
 

@@ -17,7 +17,7 @@ from pixelfit.conventions import BOUND_CONVENTION, UNDEFINED_CONVENTION
 from pixelfit.data import check_csv_rows, raw_fingerprint
 from pixelfit.evaluate import Spec
 from pixelfit.families import FAMILIES
-from pixelfit.ladder import Prepared, Rung, leak_free_test
+from pixelfit.ladder import Prepared, Rung, leak_free_test, sampling_facts
 from pixelfit.plots import decomposition_png, heatmap_png, ladder_png, learning_curve_png, stress_png
 from pixelfit.robustness import Checks
 from pixelfit.runfolder import SUMMARY_FORMAT
@@ -81,6 +81,7 @@ def build_summary(prep: Prepared, rungs: list[Rung], recommended: Rung | None, s
                   for r in rungs],
         "recommended": None if recommended is None else {"family": recommended.family, "size": recommended.size},
         "learning_curve": checks.learning_curve,
+        "sampling": sampling_facts(len(prep.y_train), len(prep.y_test)),
     }
 
 

@@ -14,6 +14,10 @@ it, so both give the same figures.
   on the fold left out (CV error) and on the held-out part (held-out error).
 - Stress tests: the grey held-out patches perturbed (shifts, gain, offset, noise, a stuck pixel,
   the threshold moved), then binarized by the rung's own binarizer and predicted.
+
+On a large set (see :data:`pixelfit.conventions.SUBSAMPLE_PATCHES` and ``HELD_OUT_SAMPLE``) the
+refits of the first two run on the stratified training subsample the ladder's CV folds used, and
+the stress tests on a stratified subsample of the held-out part.
 """
 
 from __future__ import annotations
@@ -38,7 +42,16 @@ from pixelfit.data import Binarizer, grey_perturbations, stuck_pixel, with_shift
 from pixelfit.errors import PixelfitError
 from pixelfit.evaluate import bias_variance_01, detection_metrics, last_segment_slope
 from pixelfit.families import FAMILIES
-from pixelfit.ladder import CancelFn, LadderCancelled, Prepared, Progress, Rung, stratified_subsample
+from pixelfit.ladder import (
+    CancelFn,
+    LadderCancelled,
+    Prepared,
+    Progress,
+    Rung,
+    held_out_sample,
+    stratified_subsample,
+    training_sample,
+)
 from pixelfit.models import LutRule, SearchCancelled
 
 #: Training fractions of the learning curve.
@@ -246,6 +259,11 @@ def _checks(prep: Prepared, rungs: list[Rung], grey_test, recommended, settings:
             cancel: CancelFn | None) -> Iterator[CheckProgress]:
     out = Checks(bias_variance={r.key: None for r in rungs})
     seed = settings.seed
+    # A large set: the refits run on the same stratified subsample of the training part as the
+    # ladder's CV folds, and the stress tests on a stratified subsample of the held-out part.
+    rows = training_sample(prep.y_train, seed)
+    if rows is not None:
+        prep = dataclasses.replace(prep, X_train=prep.X_train[rows], y_train=prep.y_train[rows])
     do_stress = settings.stress and grey_test is not None and len(grey_test) == len(prep.y_test)
     lc_rungs = curve_rungs(rungs, recommended) if settings.learning_curve and recommended is not None else []
     splits = curve_splits(prep, seed) if lc_rungs else []
@@ -259,11 +277,14 @@ def _checks(prep: Prepared, rungs: list[Rung], grey_test, recommended, settings:
 
     if do_stress:
         assert grey_test is not None
-        grey = np.asarray(grey_test, np.uint8)
+        grey, y_stress = np.asarray(grey_test, np.uint8), prep.y_test
+        few = held_out_sample(y_stress, seed)
+        if few is not None:
+            grey, y_stress = grey[few], y_stress[few]
         shared = stress_inputs(prep.binarizer, grey, seed)
         for r in rungs:
             stop()
-            out.stress[r.key] = stress_rung(r, prep.binarizer, grey, prep.y_test, shared)
+            out.stress[r.key] = stress_rung(r, prep.binarizer, grey, y_stress, shared)
             done += 1
             yield CheckProgress(done, total, f"{r.key}: stress tests", checks=out)
     if splits:

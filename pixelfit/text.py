@@ -153,7 +153,17 @@ def ladder_table(summary: dict) -> str:
     sub = next((r["subsample"] for r in summary["rungs"] if r.get("subsample")), None)
     if sub is not None:
         lines.append(subsample_footnote(sub["n"], sub["of"]))
+    cv_sub = next(((r.get("cv") or {}).get("subsample") for r in summary["rungs"]
+                   if (r.get("cv") or {}).get("subsample")), None)
+    if cv_sub is not None:
+        lines.append(cv_subsample_footnote(cv_sub["n"], cv_sub["of"]))
     return "\n".join(lines)
+
+
+def cv_subsample_footnote(n: int, of: int) -> str:
+    """The table's line when the CV folds ran on a large set's subsample."""
+    return (f"CV F1 of every rung on a stratified subsample of {n:,} of the {of:,} training patches (the "
+            f"thresholds are chosen there too); the final fits of the families not marked (subsample) use all of them")
 
 
 def subsample_footnote(n: int, of: int) -> str:

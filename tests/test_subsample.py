@@ -4,6 +4,7 @@ import json
 
 import numpy as np
 import pytest
+from sklearn.base import clone
 from conftest import make_patches
 
 import pixelfit.ladder as ladder
@@ -48,7 +49,26 @@ def test_a_subsampled_rung_fits_the_subsample_and_is_measured_on_all_held_out(rn
     n_train, n_test = len(prep.y_train), len(prep.y_test)
     rungs = {pr.rung.key: pr.rung for pr in run_ladder(prep, [("lut", 2), ("logistic", 2), ("mlp", 2)], folds=3)
              if pr.rung}
-    assert rungs["lut-2"].subsample is None and not any("subsample" in n for n in rungs["lut-2"].notes)
+    lut = rungs["lut-2"]
+    # A family outside SUBSAMPLED_FAMILIES: final fit on every training patch, CV on the subsample
+    assert lut.subsample is None and sum(lut.train[k] for k in ("tp", "fp", "fn", "tn")) == n_train
+    assert lut.cv["subsample"] == {"n": 90, "of": n_train}
+    assert any("cross-validated on a stratified subsample of 90 of the" in n for n in lut.notes)
+    rows = stratified_subsample(prep.y_train, 90, 0)
+    assert lut.chosen_on == "cv" and len(lut.choice_scores) == 90
+    assert np.array_equal(lut.choice_labels, prep.y_train[rows])
+    # out-of-fold scores exist on the subsample's rows only
+    assert np.isnan(lut.oof_scores).sum() == n_train - 90 and not np.isnan(lut.oof_scores[rows]).any()
+    # the CV figures are those of a 3-fold CV on the subsample alone, refitted here by hand
+    from sklearn.model_selection import StratifiedKFold
+
+    Xs, ys = prep.X_train[rows], prep.y_train[rows]
+    f1s = []
+    for tr, va in StratifiedKFold(3, shuffle=True, random_state=0).split(Xs, ys):
+        pred = clone(lut.estimator).fit(Xs[tr], ys[tr]).predict(Xs[va])
+        tp = np.sum(pred & ys[va])
+        f1s.append(2 * tp / (np.sum(pred) + np.sum(ys[va])) if tp else 0.0)
+    assert lut.cv["f1_mean"] == pytest.approx(np.mean(f1s))
     for key in ("logistic-2", "mlp-2"):
         r = rungs[key]
         assert r.subsample == {"n": 90, "of": n_train}
@@ -58,16 +78,16 @@ def test_a_subsampled_rung_fits_the_subsample_and_is_measured_on_all_held_out(rn
         # every training patch keeps an out-of-sample score: out-of-fold, or never fitted at all
         assert r.chosen_on == "cv" and len(r.choice_scores) == n_train and not np.isnan(r.choice_scores).any()
         assert r.summary(prep.shape)["subsample"] == {"n": 90, "of": n_train}
+        assert r.cv["subsample"] == {"n": 90, "of": n_train}
         # the final model is the one trained on the subsample: refit it there and compare
         sub = stratified_subsample(prep.y_train, 90, 0)
-        from sklearn.base import clone
-
         again = clone(r.estimator).fit(prep.X_train[sub], prep.y_train[sub])
         assert np.array_equal(again.predict(prep.X_test), r.test_pred)
     summary = {"rungs": [r.summary(prep.shape) for r in rungs.values()]}
     table = ladder_table(summary)
     assert f"mlp-2{SUBSAMPLE_MARK}" in table and "lut-2 " in table and f"lut-2{SUBSAMPLE_MARK}" not in table
     assert f"stratified subsample of 90 of the {n_train:,} training patches" in table
+    assert f"CV F1 of every rung on a stratified subsample of 90 of the {n_train:,}" in table
     # the checks refit a subsampled rung on subsamples too, and finish
     checks = None
     for pr in run_checks(prep, list(rungs.values()), None, rungs["lut-2"], CheckSettings(bias_variance=2)):
@@ -83,7 +103,53 @@ def test_fit_says_so_in_summary_json_and_the_table(npz_file, tmp_path, capsys, m
     s = json.loads((out / "summary.json").read_text())
     by = {r["family"]: r for r in s["rungs"]}
     assert by["constant"]["subsample"] is None
+    assert s["sampling"]["cv_and_checks"] == {"n": 40, "of": s["split"]["n_train"]}
+    assert by["constant"]["cv"]["subsample"] == {"n": 40, "of": s["split"]["n_train"]}
     assert by["logistic"]["subsample"] == {"n": 40, "of": s["split"]["n_train"]}
     assert any("stratified subsample of 40" in n for n in by["logistic"]["notes"])
     text = capsys.readouterr().out
     assert f"logistic-1{SUBSAMPLE_MARK}" in text and "(subsample) trained" in text
+
+
+def test_checks_and_importance_of_a_large_set_run_on_its_subsamples(rng, monkeypatch):
+    monkeypatch.setattr(ladder, "SUBSAMPLE_PATCHES", 90)
+    monkeypatch.setattr(ladder, "HELD_OUT_SAMPLE", 40)
+    imgs, labels = make_patches(rng, n=240)
+    prep = prepare(Dataset(imgs, labels, [], "generated", "npz"), Binarizer("otsu"), seed=2, split="stratified")
+    n_train, n_test = len(prep.y_train), len(prep.y_test)
+    assert n_test > 40
+    r = next(pr.rung for pr in run_ladder(prep, [("tree", 2)], folds=3) if pr.rung)
+    few = stratified_subsample(prep.y_test, 40, 0)
+    # the permutation map is that of the held-out subsample
+    from pixelfit.evaluate import permutation_map
+
+    expect = permutation_map(r.estimator, prep.X_test[few], prep.y_test[few], prep.shape, pixels=r.pixels, seed=0)
+    assert np.array_equal(r.importance["permutation"], expect)
+    grey_test = prep.dataset.images[prep.test_mask]
+    checks = None
+    for pr in run_checks(prep, [r], grey_test, r, CheckSettings(bias_variance=2)):
+        checks = pr.checks or checks
+    # stress: on the held-out subsample
+    from pixelfit.robustness import stress_inputs, stress_rung
+
+    grey = grey_test[few]
+    assert checks.stress["tree-2"] == stress_rung(r, prep.binarizer, grey, prep.y_test[few],
+                                                  stress_inputs(prep.binarizer, grey, 0))
+    # bias and variance: replicates of the 90-patch training subsample, predicted on every held-out patch
+    from pixelfit.evaluate import bias_variance_01
+    from pixelfit.robustness import bootstrap_indices
+
+    rows = stratified_subsample(prep.y_train, 90, 0)
+    Xs, ys = prep.X_train[rows], prep.y_train[rows]
+    preds = np.array([clone(r.estimator).fit(Xs[i], ys[i]).predict(prep.X_test)
+                      for i in bootstrap_indices(ys, 2, 0)], bool)
+    assert checks.bias_variance["tree-2"] == bias_variance_01(preds, prep.y_test)
+    # the learning curve's largest training fold is two thirds of the subsample, not of the training part
+    assert checks.learning_curve is not None
+    from pixelfit.ladder import sampling_facts
+
+    assert sampling_facts(n_train, n_test) == {"cv_and_checks": {"n": 90, "of": n_train},
+                                               "subsampled_families": ["logistic", "mlp"],
+                                               "importance_and_stress": {"n": 40, "of": n_test}}
+    assert sampling_facts(90, 40) == {"cv_and_checks": None, "subsampled_families": [],
+                                      "importance_and_stress": None}

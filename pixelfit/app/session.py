@@ -662,7 +662,8 @@ class Session:
             return None
         if self._reach is not None and self._reach[0] is r and self._reach[1] == self.spec:
             return dict(self._reach[2])  # asked on every move of the threshold
-        points = operating_points(self.run_prep.y_train, r.choice_scores)
+        labels = self.run_prep.y_train if r.choice_labels is None else r.choice_labels
+        points = operating_points(labels, r.choice_scores)
         targets = self.spec.targets
         reached = any(all(pt[k] >= v for k, v in targets.items()) for pt in points)
         best = max(points, key=lambda pt: (pt["precision"], pt["recall"]), default=None)

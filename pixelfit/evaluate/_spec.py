@@ -341,11 +341,13 @@ def apply_spec(rungs: list, y_train: np.ndarray, y_test: np.ndarray, spec: Spec 
     """Fill every rung's ``spec`` entry (None without a spec) and return the answer (None without one).
 
     The threshold of each rung is chosen on its training-part scores (``choice_scores``) alone;
-    the held-out labels only judge it.
+    the held-out labels only judge it. The scores' labels are ``y_train``, or the rung's own
+    ``choice_labels`` when it has them (a large set's CV subsample).
     """
     for r in rungs:
         if spec is None or r.choice_scores is None or r.test_scores is None:
             r.spec = None
         else:
-            r.spec = evaluate_spec(r.choice_scores, y_train, r.chosen_on, r.test_scores, y_test, spec, r.cost)
+            y_choice = y_train if getattr(r, "choice_labels", None) is None else r.choice_labels
+            r.spec = evaluate_spec(r.choice_scores, y_choice, r.chosen_on, r.test_scores, y_test, spec, r.cost)
     return None if spec is None else answer(rungs, spec)
