@@ -21,7 +21,7 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 from pixelfit._numeric import linear_decision, sigmoid
 from pixelfit.errors import TrainingError
 
-_L1_CACHE: OrderedDict[tuple[bytes, float], np.ndarray] = OrderedDict()
+_L1_CACHE: OrderedDict[tuple[bytes, float], np.ndarray] = OrderedDict()  # (data, C) -> L1 weights
 
 
 class SparseLogistic(ClassifierMixin, BaseEstimator):
@@ -30,7 +30,9 @@ class SparseLogistic(ClassifierMixin, BaseEstimator):
     ``fit`` walks the inverse penalty C of an L1-penalised fit (bisection on log C, liblinear) to
     the largest support of at most k pixels; the weights are then refit on that support with a
     light L2 penalty (C = ``refit_c``), because at the C where the k-th pixel enters, the L1
-    weights are shrunk almost to zero. With k >= n_pixels every pixel is used.
+    weights are shrunk almost to zero. When no C leaves exactly k (pixels that enter the path
+    together), the largest support under k is filled up to k with the strongest other weights of
+    the smallest support over k. With k >= n_pixels every pixel is used.
 
     Attributes
     ----------
@@ -50,7 +52,8 @@ class SparseLogistic(ClassifierMixin, BaseEstimator):
         self.max_steps = max_steps
 
     @staticmethod
-    def _l1(X, y, C, data_key: bytes):
+    def _l1(X, y, C, data_key: bytes) -> np.ndarray:
+        """The L1-penalised weights at inverse penalty C (one row of n_pixels)."""
         # Rungs of several sizes bisect over the same C values on the same folds: reuse the fits.
         key = (data_key, C)
         hit = _L1_CACHE.get(key)
@@ -62,28 +65,38 @@ class SparseLogistic(ClassifierMixin, BaseEstimator):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", ConvergenceWarning)
             m.fit(X, y)
-        support = np.flatnonzero(m.coef_.ravel())
-        _L1_CACHE[key] = support
+        coef = m.coef_.ravel().copy()
+        _L1_CACHE[key] = coef
         while len(_L1_CACHE) > 4096:
             _L1_CACHE.popitem(last=False)
-        return support
+        return coef
 
     def _support(self, X, y, k: int) -> tuple[np.ndarray, float]:
         lo = l1_min_c(X, y, loss="log") if X.any() else 1.0
         log_lo, log_hi = math.log(lo), math.log(lo * 1e6)
         best: tuple[np.ndarray, float] | None = None
+        over: tuple[np.ndarray, float] | None = None  # the weights of the smallest support above k
         data_key = _digest(X, y)
         for _ in range(self.max_steps):
             mid = (log_lo + log_hi) / 2
-            sup = self._l1(X, y, math.exp(mid), data_key)
+            coef = self._l1(X, y, math.exp(mid), data_key)
+            sup = np.flatnonzero(coef)
             if len(sup) <= k and (best is None or len(sup) > len(best[0])):
                 best = (sup, math.exp(mid))
+            if len(sup) > k and (over is None or len(sup) < np.count_nonzero(over[0])):
+                over = (coef, math.exp(mid))
             if len(sup) == k:
                 break
             if len(sup) < k:
                 log_lo = mid
             else:
                 log_hi = mid
+        if best is not None and 0 < len(best[0]) < k and over is not None:
+            # Pixels entered the L1 path together (or the steps ran out) between the largest support
+            # under k and the smallest over it: fill up to k from the latter, strongest weights first.
+            coef, c = over
+            extra = [i for i in np.argsort(-np.abs(coef), kind="stable") if coef[i] and i not in set(best[0])]
+            best = (np.sort(np.r_[best[0], extra[:k - len(best[0])]]).astype(np.intp), c)
         if best is None or len(best[0]) == 0:
             # Even the weakest useful penalty selects too many: keep the k strongest pixels.
             m = LogisticRegression(l1_ratio=1.0, solver="liblinear", C=lo * 1.5, intercept_scaling=100.0).fit(X, y)
