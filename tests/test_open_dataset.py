@@ -20,7 +20,7 @@ from PIL import Image
 from skimage.filters import threshold_otsu
 from sklearn.datasets import load_digits
 from sklearn.exceptions import ConvergenceWarning
-from sklearn.linear_model import LogisticRegression
+from sklearn.linear_model import Lasso, LogisticRegression
 from statsmodels.stats.proportion import proportion_confint
 
 from pixelfit.cli import main
@@ -143,21 +143,21 @@ def test_logistic_rung_agrees_with_sklearn(digits_run):
 
 
 def test_sparse_logistic_rung_agrees_with_sklearn(digits_run):
-    # A rung with fewer pixels than the patch: the support is the L1 path's at the C the rung
-    # chose (scikit-learn's LogisticRegression, l1_ratio = 1, liblinear, intercept_scaling = 100,
-    # as documented in SparseLogistic), and the weights are scikit-learn's L2 fit (C = refit_c,
-    # default solver) on exactly those pixels.
+    # A rung with fewer pixels than the patch: the support is the lasso's at the penalty the rung
+    # reports (checked with scikit-learn's coordinate-descent Lasso, an independent solver of the
+    # same problem: least squares of the 0/1 label with an L1 penalty, intercept not penalised),
+    # and the weights are scikit-learn's L2 logistic fit (C = refit_c, default solver) on exactly
+    # those pixels.
     _, X, y, test = _split_arrays(digits_run)
     Xtr = X[~test].astype(np.float64)
     for k in (3, 8):
         ours = SparseLogistic(k=k).fit(X[~test], y[~test])
-        assert 1 <= len(ours.support_) <= k
+        assert len(ours.support_) == k
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", ConvergenceWarning)
-            l1 = LogisticRegression(l1_ratio=1.0, solver="liblinear", C=ours.C_, max_iter=1000, random_state=0,
-                                    intercept_scaling=100.0).fit(Xtr, y[~test])
+            l1 = Lasso(alpha=ours.alpha_, tol=1e-12, max_iter=100_000).fit(Xtr, y[~test].astype(np.float64))
             ref = LogisticRegression(C=10.0, max_iter=2000).fit(Xtr[:, ours.support_], y[~test])
-        np.testing.assert_array_equal(np.flatnonzero(l1.coef_.ravel()), ours.support_)
+        np.testing.assert_array_equal(np.flatnonzero(np.abs(l1.coef_) > 1e-9), ours.support_)
         np.testing.assert_allclose(ours.coef_[0, ours.support_], ref.coef_[0], rtol=1e-6, atol=1e-8)
         np.testing.assert_array_equal(ours.predict(X[test]), ref.predict(X[test][:, ours.support_].astype(float)))
 

@@ -1,4 +1,4 @@
-"""logistic: L1 logistic regression tuned to k non-zero pixel weights (see models.SparseLogistic)."""
+"""logistic: logistic regression on the k pixels the lasso path picks first (see models.SparseLogistic)."""
 
 from __future__ import annotations
 
@@ -22,9 +22,9 @@ from pixelfit.families._base import (
 
 class LogisticFamily(Family):
     name = "logistic"
-    description = "L1 logistic regression with k non-zero pixel weights"
+    description = "logistic regression on the k pixels the lasso path picks first"
     size_name = "pixels"
-    title_format = "L1 logistic regression with non-zero weights on {n}"
+    title_format = "logistic regression on {n} picked by the lasso path"
     map_name = "weight of each pixel"
     sized_in_pixels = True
 

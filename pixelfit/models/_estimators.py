@@ -5,7 +5,6 @@ figures, rule-file sections, firmware) live in :mod:`pixelfit.families`."""
 from __future__ import annotations
 
 import hashlib
-import math
 import warnings
 from collections import OrderedDict
 
@@ -13,26 +12,53 @@ import numpy as np
 from sklearn.base import BaseEstimator, ClassifierMixin
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.feature_selection import mutual_info_classif
-from sklearn.linear_model import LogisticRegression
-from sklearn.svm import l1_min_c
+from sklearn.linear_model import LogisticRegression, lars_path_gram
 from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from pixelfit._numeric import linear_decision, sigmoid
 from pixelfit.errors import TrainingError
 
-_L1_CACHE: OrderedDict[tuple[bytes, float], np.ndarray] = OrderedDict()  # (data, C) -> L1 weights
+_PATH_CACHE: OrderedDict[bytes, tuple[np.ndarray, np.ndarray, np.ndarray]] = OrderedDict()
+
+
+def lasso_path_of(X: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The lasso path of the 0/1 label ``y`` on the pixels ``X`` (n_patches, n_pixels).
+
+    Returns scikit-learn's ``lars_path_gram`` ``alphas`` (n_points,) and ``coefs`` (n_pixels,
+    n_points), computed from the centred Gram matrix and the centred ``X.T @ y`` (the intercept is
+    not penalised), and that ``X.T @ y`` itself. Every logistic rung of a ladder chooses its pixels
+    on the same folds: the path is computed once per distinct (X, y) and reused.
+    """
+    key = _digest(X, y)
+    hit = _PATH_CACHE.get(key)
+    if hit is not None:
+        return hit
+    n = len(X)
+    B = np.asarray(X, dtype=np.float32)  # 0/1 entries: float32 sums of products are exact below 2**24
+    t = np.asarray(y, dtype=np.float64)
+    mean = B.mean(axis=0, dtype=np.float64)
+    gram = (B.T @ B).astype(np.float64) - n * np.outer(mean, mean)
+    xy = (B.T @ t.astype(np.float32)).astype(np.float64) - n * mean * t.mean()
+    alphas, _, coefs = lars_path_gram(xy, gram, n_samples=n, method="lasso", max_iter=20 * X.shape[1])
+    hit = (alphas, coefs, xy)
+    _PATH_CACHE[key] = hit
+    while len(_PATH_CACHE) > 32:
+        _PATH_CACHE.popitem(last=False)
+    return hit
 
 
 class SparseLogistic(ClassifierMixin, BaseEstimator):
-    """Logistic regression on k pixels chosen by an L1 penalty tuned to leave k non-zero weights.
+    """Logistic regression on the k pixels that the lasso path picks first.
 
-    ``fit`` walks the inverse penalty C of an L1-penalised fit (bisection on log C, liblinear) to
-    the largest support of at most k pixels; the weights are then refit on that support with a
-    light L2 penalty (C = ``refit_c``), because at the C where the k-th pixel enters, the L1
-    weights are shrunk almost to zero. When no C leaves exactly k (pixels that enter the path
-    together), the largest support under k is filled up to k with the strongest other weights of
-    the smallest support over k. With k >= n_pixels every pixel is used.
+    ``fit`` computes the lasso path of the 0/1 label on the pixels (L1-penalised least squares,
+    scikit-learn's ``lars_path_gram`` on the centred Gram matrix: the whole path at once, in a
+    time that grows with the number of patches only through one matrix product), takes the first
+    point of the path with the largest support of at most k pixels, and fits the weights of those
+    pixels by logistic regression with a light L2 penalty (C = ``refit_c``): the lasso only chooses
+    the pixels, because its own weights are shrunk. Pixels that never enter the path (constant
+    ones) are not chosen; when none enters, the k pixels most correlated with the label are read.
+    With k >= n_pixels every pixel is used.
 
     Attributes
     ----------
@@ -40,69 +66,29 @@ class SparseLogistic(ClassifierMixin, BaseEstimator):
         Flat pixel indices with a weight.
     coef_ : ndarray of shape (1, n_pixels)
     intercept_ : ndarray of shape (1,)
-    C_ : float
-        The L1 inverse penalty that chose the support.
+    alpha_ : float
+        A lasso penalty (scikit-learn's scaling, the middle of the path's segment) at which the
+        support is the lasso's; 0.0 when every pixel is used.
     n_nonzero_ : int
     classes_ : ndarray of shape (2,)
     """
 
-    def __init__(self, k: int = 1, refit_c: float = 10.0, max_steps: int = 30):
+    def __init__(self, k: int = 1, refit_c: float = 10.0):
         self.k = k
         self.refit_c = refit_c
-        self.max_steps = max_steps
 
     @staticmethod
-    def _l1(X, y, C, data_key: bytes) -> np.ndarray:
-        """The L1-penalised weights at inverse penalty C (one row of n_pixels)."""
-        # Rungs of several sizes bisect over the same C values on the same folds: reuse the fits.
-        key = (data_key, C)
-        hit = _L1_CACHE.get(key)
-        if hit is not None:
-            return hit
-        # A large intercept_scaling keeps liblinear from penalising the intercept.
-        m = LogisticRegression(l1_ratio=1.0, solver="liblinear", C=C, max_iter=1000, random_state=0,
-                               intercept_scaling=100.0)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", ConvergenceWarning)
-            m.fit(X, y)
-        coef = m.coef_.ravel().copy()
-        _L1_CACHE[key] = coef
-        while len(_L1_CACHE) > 4096:
-            _L1_CACHE.popitem(last=False)
-        return coef
-
-    def _support(self, X, y, k: int) -> tuple[np.ndarray, float]:
-        lo = l1_min_c(X, y, loss="log") if X.any() else 1.0
-        log_lo, log_hi = math.log(lo), math.log(lo * 1e6)
-        best: tuple[np.ndarray, float] | None = None
-        over: tuple[np.ndarray, float] | None = None  # the weights of the smallest support above k
-        data_key = _digest(X, y)
-        for _ in range(self.max_steps):
-            mid = (log_lo + log_hi) / 2
-            coef = self._l1(X, y, math.exp(mid), data_key)
-            sup = np.flatnonzero(coef)
-            if len(sup) <= k and (best is None or len(sup) > len(best[0])):
-                best = (sup, math.exp(mid))
-            if len(sup) > k and (over is None or len(sup) < np.count_nonzero(over[0])):
-                over = (coef, math.exp(mid))
-            if len(sup) == k:
-                break
-            if len(sup) < k:
-                log_lo = mid
-            else:
-                log_hi = mid
-        if best is not None and 0 < len(best[0]) < k and over is not None:
-            # Pixels entered the L1 path together (or the steps ran out) between the largest support
-            # under k and the smallest over it: fill up to k from the latter, strongest weights first.
-            coef, c = over
-            extra = [i for i in np.argsort(-np.abs(coef), kind="stable") if coef[i] and i not in set(best[0])]
-            best = (np.sort(np.r_[best[0], extra[:k - len(best[0])]]).astype(np.intp), c)
-        if best is None or len(best[0]) == 0:
-            # Even the weakest useful penalty selects too many: keep the k strongest pixels.
-            m = LogisticRegression(l1_ratio=1.0, solver="liblinear", C=lo * 1.5, intercept_scaling=100.0).fit(X, y)
-            order = np.argsort(-np.abs(m.coef_.ravel()), kind="stable")[:k]
-            best = (np.sort(order), lo * 1.5)
-        return best
+    def _support(X: np.ndarray, y: np.ndarray, k: int) -> tuple[np.ndarray, float]:
+        alphas, coefs, xy = lasso_path_of(X, y)
+        nnz = np.count_nonzero(coefs, axis=0)
+        fits = np.flatnonzero((nnz <= k) & (nnz > 0))
+        if len(fits) == 0:  # no pixel enters the path: the most correlated ones
+            order = np.argsort(-np.abs(xy), kind="stable")[:k]
+            return np.sort(order).astype(np.intp), float(alphas[0]) if len(alphas) else 0.0
+        size = nnz[fits].max()
+        j = int(fits[nnz[fits] == size][0])  # the first point (strongest penalty) with that many
+        # The weights at a point are those of the segment that ends there: a penalty inside it.
+        return np.flatnonzero(coefs[:, j]).astype(np.intp), float((alphas[j] + alphas[j - 1]) / 2)
 
     def fit(self, X, y):
         X, y = validate_data(self, X, y, dtype=np.float64)
@@ -116,9 +102,9 @@ class SparseLogistic(ClassifierMixin, BaseEstimator):
             raise ValueError(f"Only binary classification is supported: SparseLogistic needs samples of 2 classes, "
                              f"got {len(self.classes_)} class(es).")
         if k >= p:
-            support, c = np.arange(p), math.inf
+            support, alpha = np.arange(p), 0.0
         else:
-            support, c = self._support(X, y, k)
+            support, alpha = self._support(X, y == self.classes_[1], k)
         refit = LogisticRegression(C=self.refit_c, max_iter=2000)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", ConvergenceWarning)
@@ -128,7 +114,7 @@ class SparseLogistic(ClassifierMixin, BaseEstimator):
         self.support_ = support.astype(np.intp)
         self.coef_ = coef
         self.intercept_ = np.asarray(refit.intercept_, dtype=np.float64)
-        self.C_ = c
+        self.alpha_ = alpha
         self.n_nonzero_ = int(np.count_nonzero(coef))
         return self
 
