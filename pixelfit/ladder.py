@@ -366,11 +366,16 @@ def training_sample(y: np.ndarray, seed: int) -> np.ndarray | None:
 
 
 def subsample_for(family: str, y: np.ndarray, seed: int) -> np.ndarray | None:
-    """The training rows ``family`` trains on when the training part is over :data:`SUBSAMPLE_PATCHES`
-    (a stratified subsample of that many), None when it trains on all of them."""
-    if family not in SUBSAMPLED_FAMILIES:
+    """The training rows ``family`` trains on (CV folds and final fit) when the training part is
+    larger than its size in :data:`SUBSAMPLED_FAMILIES`: a stratified subsample of that many,
+    drawn from :func:`training_sample`'s rows when there are any; None when it trains on all."""
+    n = SUBSAMPLED_FAMILIES.get(family)
+    if n is None or len(y) <= n:
         return None
-    return training_sample(y, seed)
+    rows = training_sample(y, seed)
+    if rows is None:
+        return stratified_subsample(y, n, seed)
+    return rows if n >= len(rows) else rows[stratified_subsample(y[rows], n, seed)]
 
 
 def held_out_sample(y: np.ndarray, seed: int) -> np.ndarray | None:
@@ -388,13 +393,13 @@ def sampling_facts(n_train: int, n_test: int) -> dict:
         return {"n": cap, "of": n} if n > cap else None
 
     return {"cv_and_checks": part(n_train, SUBSAMPLE_PATCHES),
-            "subsampled_families": list(SUBSAMPLED_FAMILIES) if n_train > SUBSAMPLE_PATCHES else [],
+            "subsampled_families": {f: n for f, n in SUBSAMPLED_FAMILIES.items() if n_train > n},
             "importance_and_stress": part(n_test, HELD_OUT_SAMPLE)}
 
 
 def subsample_note(n: int, of: int) -> str:
     return (f"trained on a stratified subsample of {n:,} of the {of:,} training patches "
-            f"(this family above {SUBSAMPLE_PATCHES:,}); held-out figures use every held-out patch")
+            f"(this family above {n:,}); held-out figures use every held-out patch")
 
 
 def cv_sample_note(n: int, of: int) -> str:
@@ -425,8 +430,8 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     notes: list[str] = []
     X_all, y_all = prep.X_train, prep.y_train
     X, y, groups = X_all, y_all, prep.train_groups
-    rows = training_sample(y_all, seed)  # a large set: CV (and the slow families' fits) on these rows
-    sub = rows if family in SUBSAMPLED_FAMILIES else None
+    rows = training_sample(y_all, seed)  # a large set: every family's CV folds on these rows
+    sub = subsample_for(family, y_all, seed)  # the slow families: CV folds and final fit on these
     if sub is not None:  # everything fitted below sees the subsample; the held-out part stays whole
         X, y = X_all[sub], y_all[sub]
         groups = None if groups is None else groups[sub]
@@ -474,7 +479,7 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
         cv = {"folds": folds, "f1_mean": float(np.mean(f1s)), "f1_std": float(np.std(f1s, ddof=1)),
               "f1_folds": [float(v) for v in f1s], "error_mean": float(np.mean(errs)),
               "error_std": float(np.std(errs, ddof=1)),
-              "subsample": None if rows is None else {"n": len(rows), "of": len(y_all)}}
+              "subsample": None if len(yc) == len(y_all) else {"n": len(yc), "of": len(y_all)}}
     if cancel is not None and cancel():
         raise LadderCancelled
     est = _fit(clone(template), X, y, cancel, notes)

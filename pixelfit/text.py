@@ -150,11 +150,11 @@ def ladder_table(summary: dict) -> str:
                  "(McNemar, p < 0.05)")
     if any(is_beam(r.get("search")) for r in summary["rungs"]):
         lines.append(BEAM_NOTE)
-    sub = next((r["subsample"] for r in summary["rungs"] if r.get("subsample")), None)
-    if sub is not None:
-        lines.append(subsample_footnote(sub["n"], sub["of"]))
+    subs = {r["family"]: r["subsample"] for r in summary["rungs"] if r.get("subsample")}
+    if subs:
+        lines.append(subsample_footnote({f: v["n"] for f, v in subs.items()}, next(iter(subs.values()))["of"]))
     cv_sub = next(((r.get("cv") or {}).get("subsample") for r in summary["rungs"]
-                   if (r.get("cv") or {}).get("subsample")), None)
+                   if (r.get("cv") or {}).get("subsample") and not r.get("subsample")), None)
     if cv_sub is not None:
         lines.append(cv_subsample_footnote(cv_sub["n"], cv_sub["of"]))
     return "\n".join(lines)
@@ -162,14 +162,15 @@ def ladder_table(summary: dict) -> str:
 
 def cv_subsample_footnote(n: int, of: int) -> str:
     """The table's line when the CV folds ran on a large set's subsample."""
-    return (f"CV F1 of every rung on a stratified subsample of {n:,} of the {of:,} training patches (the "
-            f"thresholds are chosen there too); the final fits of the families not marked (subsample) use all of them")
+    return (f"CV F1 of the rungs not marked (subsample) on a stratified subsample of {n:,} of the {of:,} training "
+            f"patches (their thresholds are chosen there too); their final fits use all of them")
 
 
-def subsample_footnote(n: int, of: int) -> str:
-    """The table's line under rungs marked (subsample)."""
-    return (f"(subsample) trained (CV folds and final fit) on a stratified subsample of {n:,} of the {of:,} "
-            f"training patches, to keep a large set's slow families in time; train F1 and the bound are on "
+def subsample_footnote(sizes: dict[str, int], of: int) -> str:
+    """The table's line under rungs marked (subsample): {family: patches it trained on}."""
+    each = ", ".join(f"{f} {n:,}" for f, n in sizes.items())
+    return (f"(subsample) trained (CV folds and final fit) on a stratified subsample of the {of:,} training "
+            f"patches ({each}), to keep a large set's slow families in time; train F1 and the bound are on "
             f"the subsample, held-out figures on every held-out patch")
 
 

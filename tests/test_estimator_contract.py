@@ -4,7 +4,6 @@ Checks: scikit-learn, sklearn.utils.estimator_checks.parametrize_with_checks.
 """
 
 import numpy as np
-import pytest
 from sklearn.utils.estimator_checks import parametrize_with_checks
 
 from pixelfit.models import ConstantRule, LutRule, MemorizeRule, SparseLogistic

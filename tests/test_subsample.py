@@ -4,14 +4,14 @@ import json
 
 import numpy as np
 import pytest
-from sklearn.base import clone
 from conftest import make_patches
+from sklearn.base import clone
 
 import pixelfit.ladder as ladder
 from pixelfit.cli import main
 from pixelfit.conventions import SUBSAMPLE_PATCHES, SUBSAMPLED_FAMILIES
 from pixelfit.data import Binarizer, Dataset
-from pixelfit.ladder import prepare, run_ladder, stratified_subsample, subsample_for
+from pixelfit.ladder import prepare, run_ladder, stratified_subsample, subsample_for, training_sample
 from pixelfit.robustness import CheckSettings, run_checks
 from pixelfit.text import SUBSAMPLE_MARK, ladder_table
 
@@ -33,14 +33,21 @@ def test_only_the_slow_families_above_the_threshold():
     y = np.zeros(SUBSAMPLE_PATCHES + 1, bool)
     y[::3] = True
     assert set(SUBSAMPLED_FAMILIES) == {"logistic", "mlp"}
-    assert len(subsample_for("mlp", y, 0)) == SUBSAMPLE_PATCHES
+    assert len(subsample_for("logistic", y, 0)) == SUBSAMPLED_FAMILIES["logistic"] == SUBSAMPLE_PATCHES
+    # the networks' subsample is smaller, drawn from the rows every family's CV folds use
+    mlp = subsample_for("mlp", y, 0)
+    assert len(mlp) == SUBSAMPLED_FAMILIES["mlp"] < SUBSAMPLE_PATCHES
+    assert set(mlp) <= set(training_sample(y, 0)) and np.all(np.diff(mlp) > 0)
     assert subsample_for("lut", y, 0) is None and subsample_for("tree", y, 0) is None
-    assert subsample_for("mlp", y[:SUBSAMPLE_PATCHES], 0) is None  # at the threshold: every patch
+    n = SUBSAMPLED_FAMILIES["mlp"]
+    assert subsample_for("mlp", y[:n], 0) is None  # at the threshold: every patch
+    assert len(subsample_for("mlp", y[:n + 1], 0)) == n and training_sample(y[:n + 1], 0) is None
 
 
 @pytest.fixture
 def small_threshold(monkeypatch):
     monkeypatch.setattr(ladder, "SUBSAMPLE_PATCHES", 90)
+    monkeypatch.setattr(ladder, "SUBSAMPLED_FAMILIES", {"logistic": 90, "mlp": 60})
 
 
 def test_a_subsampled_rung_fits_the_subsample_and_is_measured_on_all_held_out(rng, small_threshold):
@@ -69,25 +76,26 @@ def test_a_subsampled_rung_fits_the_subsample_and_is_measured_on_all_held_out(rn
         tp = np.sum(pred & ys[va])
         f1s.append(2 * tp / (np.sum(pred) + np.sum(ys[va])) if tp else 0.0)
     assert lut.cv["f1_mean"] == pytest.approx(np.mean(f1s))
-    for key in ("logistic-2", "mlp-2"):
+    for key, m in (("logistic-2", 90), ("mlp-2", 60)):
         r = rungs[key]
-        assert r.subsample == {"n": 90, "of": n_train}
-        assert any("stratified subsample of 90 of the" in n for n in r.notes)
-        assert sum(r.train[k] for k in ("tp", "fp", "fn", "tn")) == 90
+        assert r.subsample == {"n": m, "of": n_train}
+        assert any(f"stratified subsample of {m} of the" in n for n in r.notes)
+        assert sum(r.train[k] for k in ("tp", "fp", "fn", "tn")) == m
         assert sum(r.test[k] for k in ("tp", "fp", "fn", "tn")) == n_test
         # every training patch keeps an out-of-sample score: out-of-fold, or never fitted at all
         assert r.chosen_on == "cv" and len(r.choice_scores) == n_train and not np.isnan(r.choice_scores).any()
-        assert r.summary(prep.shape)["subsample"] == {"n": 90, "of": n_train}
-        assert r.cv["subsample"] == {"n": 90, "of": n_train}
+        assert r.summary(prep.shape)["subsample"] == {"n": m, "of": n_train}
+        assert r.cv["subsample"] == {"n": m, "of": n_train}
         # the final model is the one trained on the subsample: refit it there and compare
-        sub = stratified_subsample(prep.y_train, 90, 0)
+        sub = subsample_for(r.family, prep.y_train, 0)
+        assert len(sub) == m
         again = clone(r.estimator).fit(prep.X_train[sub], prep.y_train[sub])
         assert np.array_equal(again.predict(prep.X_test), r.test_pred)
     summary = {"rungs": [r.summary(prep.shape) for r in rungs.values()]}
     table = ladder_table(summary)
     assert f"mlp-2{SUBSAMPLE_MARK}" in table and "lut-2 " in table and f"lut-2{SUBSAMPLE_MARK}" not in table
-    assert f"stratified subsample of 90 of the {n_train:,} training patches" in table
-    assert f"CV F1 of every rung on a stratified subsample of 90 of the {n_train:,}" in table
+    assert f"stratified subsample of the {n_train:,} training patches (logistic 90, mlp 60)" in table
+    assert f"CV F1 of the rungs not marked (subsample) on a stratified subsample of 90 of the {n_train:,}" in table
     # the checks refit a subsampled rung on subsamples too, and finish
     checks = None
     for pr in run_checks(prep, list(rungs.values()), None, rungs["lut-2"], CheckSettings(bias_variance=2)):
@@ -97,6 +105,7 @@ def test_a_subsampled_rung_fits_the_subsample_and_is_measured_on_all_held_out(rn
 
 def test_fit_says_so_in_summary_json_and_the_table(npz_file, tmp_path, capsys, monkeypatch):
     monkeypatch.setattr(ladder, "SUBSAMPLE_PATCHES", 40)
+    monkeypatch.setattr(ladder, "SUBSAMPLED_FAMILIES", {"logistic": 40, "mlp": 30})
     out = tmp_path / "run"
     assert main(["fit", str(npz_file), "--out", str(out), "--families", "constant,logistic", "--sizes",
                  "logistic=1", "--folds", "2", "--bias-variance", "0"]) == 0
@@ -149,7 +158,7 @@ def test_checks_and_importance_of_a_large_set_run_on_its_subsamples(rng, monkeyp
     from pixelfit.ladder import sampling_facts
 
     assert sampling_facts(n_train, n_test) == {"cv_and_checks": {"n": 90, "of": n_train},
-                                               "subsampled_families": ["logistic", "mlp"],
+                                               "subsampled_families": {},  # both families' sizes are larger
                                                "importance_and_stress": {"n": 40, "of": n_test}}
-    assert sampling_facts(90, 40) == {"cv_and_checks": None, "subsampled_families": [],
+    assert sampling_facts(90, 40) == {"cv_and_checks": None, "subsampled_families": {},
                                       "importance_and_stress": None}

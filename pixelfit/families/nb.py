@@ -49,7 +49,8 @@ class NaiveBayesFamily(Family):
         from pixelfit.models import pixel_mutual_information
 
         return Pipeline([("select", SelectKBest(pixel_mutual_information, k=min(size, n_pixels))),
-                         ("nb", BernoulliNB(alpha=1.0))])
+                         # the pixels are bits already: no thresholding copy on every prediction
+                         ("nb", BernoulliNB(alpha=1.0, binarize=None))])
 
     @staticmethod
     def _selected(est) -> np.ndarray:
