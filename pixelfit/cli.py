@@ -31,7 +31,7 @@ EXIT_OK, EXIT_INCOMPLETE, EXIT_BAD_INPUT = 0, 1, 2
 
 #: The flag of each setting a core refusal may name in its ``field``.
 FLAGS = {"out": "--out", "positive": "--positive", "folds": "--folds", "sizes": "--sizes", "max_size": "--max-size",
-         "test_fraction": "--test-fraction", "seed": "--seed", "binarize": "--binarize"}
+         "test_fraction": "--test-fraction", "seed": "--seed", "binarize": "--binarize", "threads": "--threads"}
 
 
 def resolve_dataset_path(path: str):
@@ -185,7 +185,10 @@ def cmd_fit(args) -> int:
         raise PixelfitError("--confidence and --budget-bytes go with --spec, e.g. --spec \"precision>=0.90,recall>=0.85\"")
     spec = None if args.spec is None else parse_spec(args.spec, 0.95 if args.confidence is None else args.confidence,
                                                       args.budget_bytes)
-    check_settings = CheckSettings(bias_variance=args.bias_variance, seed=args.seed)
+    from pixelfit.ladder import available_cpus, check_workers
+
+    threads = check_workers(available_cpus() if args.threads is None else args.threads)
+    check_settings = CheckSettings(bias_variance=args.bias_variance, seed=args.seed, workers=threads)
     source = resolve_dataset_path(args.path)
     folder = RunFolder(args.out, [source], overwrite=args.overwrite)
     try:
@@ -203,7 +206,7 @@ def cmd_fit(args) -> int:
     settings = {"families": families, "max_size": args.max_size, "sizes": args.sizes, "folds": args.folds,
                 "split": args.split, "seed": args.seed, "spec": args.spec,
                 "exhaustive": args.exhaustive, "scheduler": args.scheduler,
-                "augment": args.augment, "bias_variance": args.bias_variance}
+                "augment": args.augment, "bias_variance": args.bias_variance, "threads": threads}
     settings["command"] = ["pixelfit", *getattr(args, "argv", [])]
     settings["versions"] = library_versions()
     try:  # the lock is held from before training until the run is in place
@@ -246,7 +249,7 @@ def _fit_into(args, folder, ds, prep, rungs_plan, settings, spec, check_settings
     cancelled = False
     try:
         for pr in run_ladder(prep, rungs_plan, args.folds, args.seed, exhaustive=args.exhaustive,
-                             scheduler=args.scheduler):
+                             scheduler=args.scheduler, workers=check_settings.workers):
             if pr.rung is not None:
                 done_rungs.append(pr.rung)
             bar.update(pr.done, pr.total, pr.message, pr.rung is not None, pr.notice)
@@ -663,6 +666,9 @@ def build_parser() -> argparse.ArgumentParser:
                         "a search estimated over 30 s becomes a beam search)")
     f.add_argument("--scheduler", metavar="ADDRESS", help="run the lut searches on a Dask cluster through this "
                    "scheduler (tcp://host:8786); needs pip install 'pixelfit[cluster]'")
+    f.add_argument("--threads", type=int, metavar="N", default=None,
+                   help="fits run at once (a rung's CV folds and final fit, the checks' refits); the figures do "
+                        "not depend on it (default: the CPUs this process may use)")
     f.add_argument("--no-rules", dest="rules", action="store_false", help="do not write rules/<family>-<size>.json")
     f.add_argument("--report", action="store_true", help="also write the review page, report.html, into --out")
     f.add_argument("--bias-variance", type=int, default=DEFAULT_REPLICATES, metavar="B",

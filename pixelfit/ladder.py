@@ -8,9 +8,12 @@ never touches anything but data. Rungs that finished before a cancel are kept.
 from __future__ import annotations
 
 import contextlib
+import functools
+import os
 import time
 import warnings
-from collections.abc import Callable, Generator, Iterator
+from collections.abc import Callable, Generator, Iterator, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from functools import cached_property
 
@@ -407,10 +410,36 @@ def cv_sample_note(n: int, of: int) -> str:
             f"(every family above {SUBSAMPLE_PATCHES:,}); the final fit uses all of them")
 
 
+def in_threads(tasks: Sequence[Callable[[], object]], workers: int = 1) -> Generator:
+    """Run ``tasks`` (callables without arguments), up to ``workers`` at a time on threads, and yield
+    their results in the order of the list.
+
+    One worker runs them one after the other on the calling thread, exactly as a plain loop. The
+    fits of a ladder release the interpreter lock in their numeric work (tree building, matrix
+    products, the truth-table engine), so threads use a machine's cores without copying the data.
+    When the caller stops early (an exception, a cancel, the generator closed), the tasks not yet
+    started are dropped; those running finish on their own and their results are discarded.
+    """
+    if workers <= 1 or len(tasks) <= 1:
+        for task in tasks:
+            yield task()
+        return
+    pool = ThreadPoolExecutor(max_workers=workers, thread_name_prefix="pixelfit-fit")
+    try:
+        futures = [pool.submit(task) for task in tasks]
+        for future in futures:
+            yield future.result()
+    finally:
+        pool.shutdown(wait=False, cancel_futures=True)
+
+
 def train_rung(prep: Prepared, family: str, size: int, folds: int = 5, seed: int = 0,
-               cancel: CancelFn | None = None, exhaustive: bool = False) -> Rung:
-    """Fit one rung on the training part, cross-validate it there, measure it on the held-out part."""
-    steps = _rung_steps(prep, family, size, folds, seed, cancel, exhaustive)
+               cancel: CancelFn | None = None, exhaustive: bool = False, workers: int = 1) -> Rung:
+    """Fit one rung on the training part, cross-validate it there, measure it on the held-out part.
+
+    ``workers`` fits (the CV folds' and the final one) run at once on threads; the results do
+    not depend on it."""
+    steps = _rung_steps(prep, family, size, folds, seed, cancel, exhaustive, workers=workers)
     while True:
         try:
             next(steps)
@@ -420,7 +449,7 @@ def train_rung(prep: Prepared, family: str, size: int, folds: int = 5, seed: int
 
 def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
                 cancel: CancelFn | None, exhaustive: bool = False,
-                cluster: bool = False) -> Generator[str, None, Rung]:
+                cluster: bool = False, workers: int = 1) -> Generator[str, None, Rung]:
     """:func:`train_rung` as a generator: yields a message after each fit, returns the rung.
 
     A :class:`_Notice` among the messages is no step: for a lut rung, the search's estimate.
@@ -456,33 +485,53 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
             yield notice
     cv = None
     oof = np.full(len(yc), np.nan)
+
+    def stop() -> None:
+        if cancel is not None and cancel():
+            raise LadderCancelled
+
+    def fold_fit(tr: np.ndarray, va: np.ndarray):
+        stop()
+        est = _fit(clone(template), Xc[tr], yc[tr], cancel, notes)
+        return est.predict(Xc[va]), _score(est, Xc[va])
+
+    def final_fit():
+        stop()
+        return _fit(clone(template), X, y, cancel, notes)
+
+    tasks: list[Callable[[], object]] = []
+    folds_va: list[np.ndarray] = []
     if folds:
         if rows is not None and sub is None:
             notes.append(cv_sample_note(len(rows), len(y_all)))
-        f1s, errs = [], []
         if gc is None:
             splits = StratifiedKFold(n_splits=folds, shuffle=True, random_state=seed).split(Xc, yc)
         else:  # identical grey patches stay in one fold, so no fold validates on its own training copy
             splits = StratifiedGroupKFold(n_splits=folds, shuffle=True, random_state=seed).split(Xc, yc, gc)
-        for i, (tr, va) in enumerate(splits):
-            if cancel is not None and cancel():
-                raise LadderCancelled
-            est = _fit(clone(template), Xc[tr], yc[tr], cancel, notes)
-            pred = est.predict(Xc[va])
-            fold = detection_metrics(yc[va], pred)
-            f1s.append(fold["f1"] or 0.0)
-            errs.append(1.0 - fold["accuracy"])
-            s = _score(est, Xc[va])
-            if s is not None:
-                oof[va] = s
-            yield f"{family}-{size}: fold {i + 1} of {folds}"
-        cv = {"folds": folds, "f1_mean": float(np.mean(f1s)), "f1_std": float(np.std(f1s, ddof=1)),
-              "f1_folds": [float(v) for v in f1s], "error_mean": float(np.mean(errs)),
-              "error_std": float(np.std(errs, ddof=1)),
-              "subsample": None if len(yc) == len(y_all) else {"n": len(yc), "of": len(y_all)}}
-    if cancel is not None and cancel():
-        raise LadderCancelled
-    est = _fit(clone(template), X, y, cancel, notes)
+        for tr, va in splits:
+            tasks.append(functools.partial(fold_fit, tr, va))
+            folds_va.append(va)
+    tasks.append(final_fit)  # independent of the folds: with several workers it runs beside them
+    results = in_threads(tasks, workers)
+    try:
+        if folds:
+            f1s, errs = [], []
+            for i, va in enumerate(folds_va):
+                pred, s = next(results)
+                fold = detection_metrics(yc[va], pred)
+                f1s.append(fold["f1"] or 0.0)
+                errs.append(1.0 - fold["accuracy"])
+                if s is not None:
+                    oof[va] = s
+                yield f"{family}-{size}: fold {i + 1} of {folds}"
+            cv = {"folds": folds, "f1_mean": float(np.mean(f1s)), "f1_std": float(np.std(f1s, ddof=1)),
+                  "f1_folds": [float(v) for v in f1s], "error_mean": float(np.mean(errs)),
+                  "error_std": float(np.std(errs, ddof=1)),
+                  "subsample": None if len(yc) == len(y_all) else {"n": len(yc), "of": len(y_all)}}
+        stop()
+        est = next(results)
+    finally:
+        results.close()
     yield f"{family}-{size}: final fit"
     train_pred = np.asarray(est.predict(X), bool)
     test_pred = np.asarray(est.predict(prep.X_test), bool)
@@ -602,21 +651,41 @@ CLUSTER_CONNECT_SECONDS = 10
 
 def run_ladder(prep: Prepared, rungs: list[tuple[str, int]], folds: int = 5, seed: int = 0,
                cancel: CancelFn | None = None, exhaustive: bool = False,
-               scheduler: str | None = None) -> Iterator[Progress]:
+               scheduler: str | None = None, workers: int = 1) -> Iterator[Progress]:
     """Train every rung in order, yielding a :class:`Progress` per step.
 
     Raises :class:`LadderCancelled` between steps when ``cancel()`` returns True. Call
     :func:`conclude` on the finished rungs to mark the recommended one and the comparisons.
     ``exhaustive`` makes every lut search exhaustive whatever its estimated time; ``scheduler``
-    (a Dask scheduler's address) runs the lut searches' work units on that cluster.
+    (a Dask scheduler's address) runs the lut searches' work units on that cluster. ``workers``
+    fits of a rung (its CV folds and final fit) run at once on threads (one with a scheduler,
+    whose engine is set for the calling thread); the results do not depend on it. ``cancel`` may
+    then be called from those threads too.
     """
     # Ladder matrices are small: threads in BLAS only add overhead (and stall badly on a busy
     # machine), so numeric libraries run single-threaded while the ladder trains.
+    workers = 1 if scheduler else check_workers(workers)
     with threadpool_limits(limits=1), cluster_engine(scheduler):
-        yield from _run(prep, rungs, folds, seed, cancel, exhaustive, bool(scheduler))
+        yield from _run(prep, rungs, folds, seed, cancel, exhaustive, bool(scheduler), workers)
 
 
-def _run(prep, rungs, folds, seed, cancel, exhaustive=False, cluster=False) -> Iterator[Progress]:
+def check_workers(workers: int) -> int:
+    """``workers`` as a count of threads, refused unless at least 1."""
+    if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
+        raise TrainingError(f"the number of fits at once must be a whole number of at least 1, not {workers!r}",
+                            field="threads")
+    return workers
+
+
+def available_cpus() -> int:
+    """CPUs this process may run on (its affinity where the system says, else the machine's)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not on every system
+        return max(1, os.cpu_count() or 1)
+
+
+def _run(prep, rungs, folds, seed, cancel, exhaustive=False, cluster=False, workers=1) -> Iterator[Progress]:
     seed = check_seed(seed)
     folds, fold_note = effective_folds(prep.y_train, folds, prep.train_groups)
     notes = [n for n in (fold_note, identical_note(prep.X_train)) if n]
@@ -626,7 +695,7 @@ def _run(prep, rungs, folds, seed, cancel, exhaustive=False, cluster=False) -> I
     for note in notes:
         yield Progress(done, total, note)
     for family, size in rungs:
-        steps = _rung_steps(prep, family, size, folds, seed, cancel, exhaustive, cluster)
+        steps = _rung_steps(prep, family, size, folds, seed, cancel, exhaustive, cluster, workers)
         while True:
             try:
                 message = next(steps)

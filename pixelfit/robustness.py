@@ -23,6 +23,7 @@ the stress tests on a stratified subsample of the held-out part.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import warnings
 from collections.abc import Iterator
 from dataclasses import dataclass, field
@@ -49,6 +50,7 @@ from pixelfit.ladder import (
     Progress,
     Rung,
     held_out_sample,
+    in_threads,
     stratified_subsample,
     training_sample,
 )
@@ -70,6 +72,8 @@ class CheckSettings:
     learning_curve: bool = True
     stress: bool = True
     seed: int = 0
+    #: refits run at once on threads (the results do not depend on it)
+    workers: int = 1
 
     def __post_init__(self) -> None:
         if self.bias_variance < 0 or self.bias_variance == 1:
@@ -288,7 +292,7 @@ def _checks(prep: Prepared, rungs: list[Rung], grey_test, recommended, settings:
             done += 1
             yield CheckProgress(done, total, f"{r.key}: stress tests", checks=out)
     if splits:
-        yield from _learning_curve(prep, lc_rungs, splits, out, seed, done, total, stop, cancel)
+        yield from _learning_curve(prep, lc_rungs, splits, out, seed, done, total, stop, cancel, settings.workers)
         done += len(lc_rungs) * len(splits) * len(FRACTIONS)
     if B:
         draws = bootstrap_indices(prep.y_train, B, seed)
@@ -296,14 +300,23 @@ def _checks(prep: Prepared, rungs: list[Rung], grey_test, recommended, settings:
         for r in rungs:
             template = _template(r, prep, seed)
             preds = np.empty((B, len(prep.y_test)), bool)
-            for b, idx in enumerate(draws):
+
+            def replicate(b: int, idx: np.ndarray, r: Rung = r, template=template) -> np.ndarray:
                 stop()
                 if r.subsample is not None:  # the rung's own procedure: a stratified subsample of the draw
                     idx = idx[stratified_subsample(y[idx], r.subsample["n"], seed + b)]
-                preds[b] = _predict(_fit(clone(template), X[idx], y[idx], cancel), prep.X_test)
-                done += 1
-                if b + 1 < B:
-                    yield CheckProgress(done, total, f"{r.key}: replicate {b + 1} of {B}")
+                return _predict(_fit(clone(template), X[idx], y[idx], cancel), prep.X_test)
+
+            results = in_threads([functools.partial(replicate, b, idx) for b, idx in enumerate(draws)],
+                                 settings.workers)
+            try:
+                for b in range(B):
+                    preds[b] = next(results)
+                    done += 1
+                    if b + 1 < B:
+                        yield CheckProgress(done, total, f"{r.key}: replicate {b + 1} of {B}")
+            finally:
+                results.close()
             out.bias_variance[r.key] = bias_variance_01(preds, prep.y_test)
             yield CheckProgress(done, total, f"{r.key}: bias and variance", checks=out)
     yield CheckProgress(done, total, "checks done", checks=out)
@@ -319,28 +332,39 @@ def _template(r, prep, seed):
     return template
 
 
-def _learning_curve(prep, lc_rungs, splits, out: Checks, seed, done, total, stop, cancel) -> Iterator[CheckProgress]:
+def _learning_curve(prep, lc_rungs, splits, out: Checks, seed, done, total, stop, cancel,
+                    workers: int = 1) -> Iterator[CheckProgress]:
     X, y = prep.X_train, prep.y_train
     points, slope, verdict = [], {}, {}
     for r in lc_rungs:
         template = _template(r, prep, seed)
         cv = np.full((len(splits), len(FRACTIONS)), np.nan)
         test = np.full_like(cv, np.nan)
+
+        def point(rows: np.ndarray, va: np.ndarray, template=template) -> tuple[float, float]:
+            stop()
+            try:
+                est = _fit(clone(template), X[rows], y[rows], cancel)
+            except ValueError:  # a family that refuses a sample (one class): the point stays empty
+                return np.nan, np.nan
+            return (float(np.mean(_predict(est, X[va]) != y[va])),
+                    float(np.mean(_predict(est, prep.X_test) != prep.y_test)))
+
+        tasks, where = [], []
         for i, (tr, va) in enumerate(splits):
             # A subsampled rung's curve spans the sizes it is trained at: fractions of its subsample.
             cap = len(tr) if r.subsample is None else min(len(tr), r.subsample["n"])
             for j, n in enumerate(curve_sizes(cap)):
-                stop()
-                rows = tr[:n]
-                try:
-                    est = _fit(clone(template), X[rows], y[rows], cancel)
-                except ValueError:  # a family that refuses a sample (one class): the point stays empty
-                    est = None
-                if est is not None:
-                    cv[i, j] = float(np.mean(_predict(est, X[va]) != y[va]))
-                    test[i, j] = float(np.mean(_predict(est, prep.X_test) != prep.y_test))
+                tasks.append(functools.partial(point, tr[:n], va))
+                where.append((i, j))
+        results = in_threads(tasks, workers)
+        try:
+            for i, j in where:
+                cv[i, j], test[i, j] = next(results)
                 done += 1
                 yield CheckProgress(done, total, f"{r.key}: learning curve {FRACTIONS[j]:.0%} of fold {i + 1}")
+        finally:
+            results.close()
         for j, f in enumerate(FRACTIONS):
             points.append({"rung": r.key, "fraction": f, "cv_error": _mean(cv[:, j]), "cv_error_std": _std(cv[:, j]),
                            "test_error": _mean(test[:, j]), "test_error_std": _std(test[:, j])})
