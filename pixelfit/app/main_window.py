@@ -21,7 +21,7 @@ from pixelfit.app.widgets.inspector import RungInspector
 from pixelfit.app.widgets.ladder_view import AxisChooser, ErrorPlot, LadderTable
 from pixelfit.app.widgets.prep_panel import PixelPrep
 from pixelfit.app.widgets.source_panel import ImportReport
-from pixelfit.app.workers import LadderWorker
+from pixelfit.app.workers import LadderWorker, run_in_thread
 
 APP_NAME = "pixelfit"
 DEMO_SET = "bottle-caps"
@@ -75,6 +75,9 @@ class MainWindow(QtWidgets.QMainWindow):
         self.settings = settings or QtCore.QSettings(APP_NAME, APP_NAME)
         self.ask = ask or self._ask_dialog
         self.worker: LadderWorker | None = None
+        # Reading and preparing patches run on a worker thread while the event loop turns.
+        self.session.runner = lambda job: run_in_thread(job, self)
+        self._close_when_ready = False
         self.setWindowTitle(APP_NAME)
         self.setAcceptDrops(True)
         self._make_actions()
@@ -147,7 +150,7 @@ class MainWindow(QtWidgets.QMainWindow):
                              s.subscribe("prep", self._update_actions), s.subscribe("rungs", self._update_actions),
                              s.subscribe("dataset", self._dataset_opened),
                              s.subscribe("explain", self._show_explanation), s.subscribe("compare", self._show_comparison),
-                             s.subscribe("run", self._collector_for_run)]
+                             s.subscribe("run", self._collector_for_run), s.subscribe("busy", self._busy_changed)]
         self._update_actions()
         self.resize(1680, 1000)
         # The trainer's fork server imports scikit-learn in its own process, so the first climb
@@ -208,15 +211,25 @@ class MainWindow(QtWidgets.QMainWindow):
 
     def _update_actions(self, *_) -> None:
         s = self.session
-        self.act_climb.setEnabled(not s.running and s.prep is not None)
+        self.act_climb.setEnabled(not s.running and not s.preparing and s.prep is not None)
         self.act_halt.setEnabled(s.running)
         for a in (self.act_open, self.act_open_npz):
-            a.setEnabled(not s.running)
+            a.setEnabled(not s.running and not s.preparing)
         self.act_save.setEnabled(s.selected is not None)
         self.act_export.setEnabled(s.selected is not None)
         self.act_report.setEnabled(not s.running and bool(s.rungs))
         title = APP_NAME if s.dataset is None else f"{Path(s.dataset.source).name} — {APP_NAME}"
         self.setWindowTitle(title)
+
+    def _busy_changed(self) -> None:
+        self._update_actions()
+        if self.session.preparing:
+            self.statusBar().showMessage("preparing the patches…")
+        else:
+            self.statusBar().clearMessage()
+            if self._close_when_ready:
+                self._close_when_ready = False
+                QtCore.QTimer.singleShot(0, self, self.close)
 
     def _message(self, text: str, error: bool) -> None:
         self.strip.show_message(text, error)
@@ -422,6 +435,10 @@ class MainWindow(QtWidgets.QMainWindow):
 
     def closeEvent(self, event: QtGui.QCloseEvent) -> None:
         s = self.session
+        if s.preparing:  # a job's thread is still running: close once it has returned
+            self._close_when_ready = True
+            event.ignore()
+            return
         if s.running and not self.ask("Stop the ladder?", "A ladder is still climbing. Stop it and close?"):
             event.ignore()
             return
