@@ -227,6 +227,7 @@ class MainWindow(QtWidgets.QMainWindow):
             self.statusBar().showMessage("preparing the patches…")
         else:
             self.statusBar().clearMessage()
+            QtCore.QTimer.singleShot(250, self._collect_and_freeze)
             if self._close_when_ready:
                 self._close_when_ready = False
                 QtCore.QTimer.singleShot(0, self, self.close)
@@ -285,22 +286,24 @@ class MainWindow(QtWidgets.QMainWindow):
             self.compare_view.raise_()
 
     def _collector_for_run(self) -> None:
-        """Keep Python's full garbage collection out of a climb.
+        """Keep Python's full garbage collection out of the window's work.
 
-        A full collection walks every object the window holds (data set, rungs, maps, plots) and
-        stalled the event loop by over 100 ms mid-climb. While a ladder climbs, what existed before
-        it is frozen (left out of collections); a quarter second after it ends, one collection runs
-        and everything is frozen again, so the next climb starts from a clean heap.
+        A full collection walks every object the window holds (data set, rungs, maps, plots, the
+        libraries' own): over 100 ms mid-climb, and as long after each climb when everything was
+        unfrozen and collected (benchmarks/bench_gui_million.py). So what exists when a ladder starts
+        is frozen (left out of collections), and a quarter second after a climb or a preparation
+        ends, what was made since is collected and frozen too. Frozen objects are still freed by
+        reference counting as ever (the patches, the prepared matrices, the models); only garbage
+        in reference cycles among them waits until the window is released.
         """
         if self.session.running:
             gc.freeze()
         else:
-            gc.unfreeze()
             QtCore.QTimer.singleShot(250, self._collect_and_freeze)
 
     def _collect_and_freeze(self) -> None:
-        if not self.session.running:
-            gc.collect()
+        if not self.session.running and not self.session.preparing:
+            gc.collect()  # frozen objects are left out: this walks only what was made since
             gc.freeze()
 
     def _dataset_opened(self) -> None:
