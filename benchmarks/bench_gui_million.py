@@ -58,6 +58,55 @@ def peak_rss_mib() -> float:
     return kib / 1024 if sys.platform != "darwin" else kib / 2**20
 
 
+class Watchdog:
+    """A thread that looks at the heartbeat every 10 ms; when it is over 80 ms late, it notes the
+    innermost frames of every thread (it runs when it gets the interpreter lock, so a thread that
+    held the lock through the gap is caught in the act, or just after)."""
+
+    def __init__(self, late_ms: float = 80.0):
+        import threading
+
+        self.late_ms = late_ms
+        self.seen: dict[str, int] = {}
+        self.stop_flag = threading.Event()
+        self.thread: threading.Thread | None = None
+
+    def start(self, beat) -> None:
+        import threading
+        import traceback
+
+        self.seen = {}
+        self.stop_flag.clear()
+        main_id = threading.main_thread().ident
+
+        def look() -> None:
+            while not self.stop_flag.wait(0.01):
+                last = beat.ticks[-1] if beat.ticks else time.perf_counter()
+                if (time.perf_counter() - last) * 1000 < self.late_ms:
+                    continue
+                parts = []
+                for ident, frame in sys._current_frames().items():
+                    if ident == threading.get_ident():
+                        continue
+                    where = traceback.extract_stack(frame)[-4:]
+                    who = "GUI" if ident == main_id else "other"
+                    parts.append(who + ": " + " <- ".join(f"{Path(f.filename).name}:{f.lineno} {f.name}"
+                                                          for f in reversed(where)))
+                key = "\n    ".join(sorted(parts))
+                self.seen[key] = self.seen.get(key, 0) + 1
+                time.sleep(0.05)
+
+        self.thread = threading.Thread(target=look, daemon=True)
+        self.thread.start()
+
+    def report(self) -> None:
+        self.stop_flag.set()
+        if self.thread is not None:
+            self.thread.join()
+        for key, n in sorted(self.seen.items(), key=lambda kv: -kv[1])[:6]:
+            print(f"  late x{n}:\n    {key}")
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--n", type=int, default=1_000_000, help="patches to generate (1,000,000)")
@@ -67,6 +116,8 @@ def main() -> int:
     ap.add_argument("--folds", type=int, default=3)
     ap.add_argument("--profile", action="store_true",
                     help="profile the GUI thread in each phase and print its most costly calls")
+    ap.add_argument("--why", action="store_true",
+                    help="when the heartbeat is over 80 ms late, note what every thread is doing (a watchdog thread)")
     ap.add_argument("--keep", metavar="DIR", help="write the .npz here and keep it (reused when it exists)")
     ap.add_argument("--write-only", metavar="FILE", help=argparse.SUPPRESS)  # the child that generates
     args = ap.parse_args()
@@ -128,6 +179,7 @@ def main() -> int:
         timer.stop()
 
     results: list[tuple[str, np.ndarray, float]] = []
+    watch = Watchdog() if args.why else None
     profiler = None
 
     def profiled(start: bool) -> None:
@@ -148,6 +200,8 @@ def main() -> int:
         beat = Heartbeat()
         profiled(True)
         beat.start()
+        if watch is not None:
+            watch.start(beat)
         t0 = time.perf_counter()
         QtCore.QTimer.singleShot(0, act)  # the action runs inside the event loop, as a click's slot does
         pump(0.05)
@@ -156,6 +210,8 @@ def main() -> int:
         pump(settle)  # the paints and cached work that follow
         gaps = beat.stop()
         profiled(False)
+        if watch is not None:
+            watch.report()
         results.append((name, gaps, wall))
         print(f"{name:<11} longest stall {gaps.max():8.1f} ms   p99 {np.percentile(gaps, 99):7.1f} ms   "
               f"wall {wall:6.1f} s   peak RSS {peak_rss_mib():7,.0f} MiB", flush=True)
@@ -200,6 +256,8 @@ def main() -> int:
     beat = Heartbeat()
     profiled(True)
     beat.start()
+    if watch is not None:
+        watch.start(beat)
     t0 = time.perf_counter()
     QtCore.QTimer.singleShot(0, climb)
     pump(0.05)
@@ -208,6 +266,8 @@ def main() -> int:
     pump(1.0)
     gaps = beat.stop()
     profiled(False)
+    if watch is not None:
+        watch.report()
     results.append(("climb", gaps, wall))
     print(f"{'climb':<11} longest stall {gaps.max():8.1f} ms   p99 {np.percentile(gaps, 99):7.1f} ms   "
           f"wall {wall:6.1f} s   peak RSS {peak_rss_mib():7,.0f} MiB", flush=True)

@@ -156,6 +156,9 @@ class MainWindow(QtWidgets.QMainWindow):
         # The trainer's fork server imports scikit-learn in its own process, so the first climb
         # does not wait one to two seconds for it.
         QtCore.QTimer.singleShot(0, self, _warm_up_trainer)
+        # One full collection while the window comes up, then the libraries' objects are frozen:
+        # later collections walk only what the session makes (see _collector_for_run).
+        QtCore.QTimer.singleShot(0, self, self._collect_and_freeze)
 
     # ---- actions ------------------------------------------------------------------------------
 
