@@ -286,7 +286,7 @@ def main() -> int:
         QtWidgets.QApplication.processEvents()
         g.view.scrollToBottom()
         QtWidgets.QApplication.processEvents()
-        for k, r in enumerate(s.rungs):
+        for k in range(len(s.rungs)):
             w.table.selectRow(k)
             QtWidgets.QApplication.processEvents()
             slider = w.inspector.slider

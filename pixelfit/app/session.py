@@ -50,6 +50,7 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any, TypeVar
 
 import numpy as np
 
@@ -70,10 +71,11 @@ EVENTS = ("dataset", "prep", "gallery", "settings", "run", "progress", "rungs", 
           "map", "spec", "check", "axis", "checks", "explain", "compare", "message", "busy")
 
 #: runner(job) -> job(), raising what it raises; see the module docstring.
-Runner = Callable[[Callable[[], object]], object]
+Runner = Callable[[Callable[[], Any]], Any]
+T = TypeVar("T")
 
 
-def run_here(job: Callable[[], object]) -> object:
+def run_here(job: Callable[[], T]) -> T:
     """The default :data:`Runner`: the job on the calling thread."""
     return job()
 
@@ -292,7 +294,7 @@ class Session:
 
     # ---- data ---------------------------------------------------------------------------------
 
-    def _off_thread(self, job: Callable[[], object]) -> object:
+    def _off_thread(self, job: Callable[[], T]) -> T:
         """``job()`` through :attr:`runner`, with :attr:`preparing` set (and ``busy`` told) meanwhile."""
         self.preparing = True
         self._emit("busy")
@@ -307,12 +309,13 @@ class Session:
             self.say("the patches are still being prepared; wait a moment", True)
         return self.preparing
 
-    def _prepare_job(self, dataset: Dataset, positive: str | None) -> Callable[[], tuple]:
+    def _prepare_job(self, dataset: Dataset, positive: str | None
+                     ) -> Callable[[], tuple[Prepared | PixelfitError, PrepSummary]]:
         """A job that prepares ``dataset`` with the current settings (captured now) and summarizes
         it: returns (prepared set or the PixelfitError that refused it, summary)."""
         binarizer, fraction, seed, split = self.binarizer, self.test_fraction, self.seed, self.split
 
-        def job() -> tuple:
+        def job() -> tuple[Prepared | PixelfitError, PrepSummary]:
             try:
                 prep: Prepared | PixelfitError = prepare(dataset, binarizer, positive, fraction, seed, split)
             except PixelfitError as exc:
@@ -330,12 +333,12 @@ class Session:
             return False
         dataset: list[Dataset] = []
 
-        def job() -> tuple:
+        def job() -> tuple[Prepared | PixelfitError, PrepSummary]:
             dataset.append(load_dataset(path))
             return self._prepare_job(dataset[0], None)()
 
         try:
-            prep, summary = self._off_thread(job)  # type: ignore[misc]
+            prep, summary = self._off_thread(job)
         except PixelfitError as exc:
             self.refuse(exc)
             return False
@@ -384,7 +387,7 @@ class Session:
             self.prep = None
             self._emit("prep")
             return
-        prep, summary = self._off_thread(self._prepare_job(self.dataset, self.positive))  # type: ignore[misc]
+        prep, summary = self._off_thread(self._prepare_job(self.dataset, self.positive))
         self._take_prep(prep, summary)
 
     def _take_prep(self, prep: Prepared | PixelfitError, summary: PrepSummary) -> None:
@@ -469,11 +472,11 @@ class Session:
         prep, rungs = self.run_prep, list(self.rungs)
         check = self.run_prep.check
 
-        def job() -> tuple:
+        def job() -> tuple[list[dict] | None, np.ndarray]:
             suspects = suspect_labels(prep, rungs)
             return suspects, suspect_rows(prep.dataset, suspects)
 
-        suspects, rows = self._off_thread(job)  # type: ignore[misc]
+        suspects, rows = self._off_thread(job)
         check.suspects = suspects
         self._suspect_rows = (suspects, rows)
         self._emit("check")
