@@ -199,3 +199,19 @@ def test_a_model_asks_for_its_rows_once_per_reset(qtbot):
     m.reset()
     m.set_page(2)
     assert len(calls) == 1 and m.rows.tolist() == [8, 9] and m.span_text("tiles") == "tiles 9–10 of 10"
+
+
+def test_maps_of_the_training_data_are_computed_by_the_runner_once(tmp_path, rng):
+    path, _, _ = npz_with_copies(tmp_path, rng)
+    s = Session()
+    assert s.open(path)
+    jobs: list[int] = []
+    s.runner = lambda job: (jobs.append(1), job())[1]
+    s.set_map_kind("mutual_information")
+    values, caption = s.heatmap()
+    assert values is not None and len(jobs) == 1
+    s.set_map_kind("mean_difference")
+    assert s.heatmap()[0] is not None and len(jobs) == 1  # both maps came from the one job
+    s.preparing = True  # asked again while another job runs: no second job, a caption that says so
+    s._data_maps = None
+    assert s.heatmap() == (None, "data: lit-rate difference: computing…") and len(jobs) == 1

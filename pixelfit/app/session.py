@@ -841,7 +841,10 @@ class Session:
             if prep is None:
                 return None, "no data"
             if self._data_maps is None or self._data_maps[0] is not prep:
-                self._data_maps = (prep, prep.data_maps())
+                if self.preparing:  # asked again while they are computed (seconds on a large set)
+                    return None, f"{MAP_KINDS[self.map_kind]}: computing…"
+                maps = self._off_thread(prep.data_maps)
+                self._data_maps = (prep, maps)
             return self._data_maps[1][self.map_kind], MAP_KINDS[self.map_kind]
         r = self.selected
         if r is None:
