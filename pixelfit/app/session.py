@@ -320,6 +320,8 @@ class Session:
                 prep: Prepared | PixelfitError = prepare(dataset, binarizer, positive, fraction, seed, split)
             except PixelfitError as exc:
                 prep = exc
+            if isinstance(prep, Prepared):
+                prep.train_fingerprint  # noqa: B018 - a cached hash of the training set, made here, not when a rule is saved
             return prep, PrepSummary(dataset, prep if isinstance(prep, Prepared) else None)
 
         return job
@@ -463,8 +465,8 @@ class Session:
         rows = s.rows.get(finding, np.zeros(0, np.intp))
         at = int(np.searchsorted(rows, row))
         group = str(s.groups[finding][at]) if at < len(rows) and rows[at] == row else ""
-        others = [int(i) for i in c.members(group) if i != row]
-        return np.array([row] + others, np.intp)
+        members = c.members(group)
+        return np.concatenate([[row], members[members != row]]).astype(np.intp)
 
     def _find_suspects(self) -> None:
         if self.run_prep is None or self.run_prep.check is None:
@@ -598,7 +600,9 @@ class Session:
         self.recommended = conclude(self.rungs, self.run_prep.y_test)
         self.answer = apply_spec(self.rungs, self.run_prep.y_train, self.run_prep.y_test, self.spec)
         for r in self.rungs:
-            measure_integer(r, self.run_prep.X_test, self.run_prep.y_test)
+            # Measured by the worker at the rung's own threshold; again here only where the spec moved it.
+            if r.quantized is None or r.quantized["threshold"] != r.operating_point["threshold"]:
+                measure_integer(r, self.run_prep.X_test, self.run_prep.y_test)
         self._emit("rungs")
 
     def set_checks(self, checks: Checks) -> None:

@@ -22,7 +22,7 @@ from collections.abc import Callable
 from pixelfit.app._qt import QtCore
 from pixelfit.app.session import RunSpec
 from pixelfit.errors import PixelfitError
-from pixelfit.ladder import LadderCancelled
+from pixelfit.ladder import LadderCancelled, measure_integer
 from pixelfit.ladder_process import TrainerLost, run_ladder_in_process
 from pixelfit.robustness import CheckProgress
 
@@ -70,6 +70,9 @@ class LadderWorker(QtCore.QThread):
                                             scheduler=spec.scheduler, checks=spec.checks,
                                             grey_test=spec.held_out_grey()):
                 if pr.rung is not None:
+                    # The integer predictor's held-out check (a tree walks every held-out patch) on
+                    # this thread, not the GUI thread's.
+                    measure_integer(pr.rung, spec.prep.X_test, spec.prep.y_test)
                     self.rung_ready.emit(pr.rung)
                 if isinstance(pr, CheckProgress) and pr.checks is not None:
                     self.checks_ready.emit(pr.checks)
