@@ -215,3 +215,22 @@ def test_maps_of_the_training_data_are_computed_by_the_runner_once(tmp_path, rng
     s.preparing = True  # asked again while another job runs: no second job, a caption that says so
     s._data_maps = None
     assert s.heatmap() == (None, "data: lit-rate difference: computing…") and len(jobs) == 1
+
+
+def test_the_summary_made_by_the_job_is_the_one_the_panels_read(tmp_path, rng, monkeypatch):
+    import pixelfit.app.session as session_module
+
+    path, _, _ = npz_with_copies(tmp_path, rng)
+    s = Session()
+    made: list[str] = []
+    original = session_module.PrepSummary.__init__
+
+    def counting(self, dataset, prep):
+        made.append("job" if s.preparing else "here")
+        original(self, dataset, prep)
+
+    monkeypatch.setattr(session_module.PrepSummary, "__init__", counting)
+    s.subscribe("dataset", lambda: s.class_counts())  # a panel asking before the prepared set is in
+    assert s.open(path)
+    s.class_counts(), s.histogram(), s.check_counts()
+    assert made == ["job"]

@@ -89,6 +89,7 @@ class PrepSummary:
     """
 
     def __init__(self, dataset: Dataset, prep: Prepared | None):
+        self.dataset = dataset
         self.prep = prep
         labels, n = np.unique(dataset.labels, return_counts=True)
         self.counts = {str(c): int(k) for c, k in zip(labels, n)}
@@ -408,7 +409,8 @@ class Session:
         if self.dataset is None:
             return None
         s = self._summary
-        if s is None or s.prep is not self.prep:
+        # A summary made with the dataset serves while its prepared set is being taken in (prep None).
+        if s is None or s.dataset is not self.dataset or (s.prep is not self.prep and self.prep is not None):
             s = self._summary = PrepSummary(self.dataset, self.prep)
         return s
 
