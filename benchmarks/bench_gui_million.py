@@ -273,6 +273,7 @@ def main() -> int:
           f"wall {wall:6.1f} s   peak RSS {peak_rss_mib():7,.0f} MiB", flush=True)
     print(f"  {len(s.rungs)} rungs ({args.families}, max size {args.max_size}, {args.folds} folds); "
           f"pickled to the trainer: {', '.join(f'{b:,} bytes' for b in sent) or 'nothing'}")
+    print(f"  the window said: {w.strip.text.text()}")
 
     def browse() -> None:
         g = w.gallery
