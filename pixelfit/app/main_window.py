@@ -21,7 +21,7 @@ from pixelfit.app.widgets.inspector import RungInspector
 from pixelfit.app.widgets.ladder_view import AxisChooser, ErrorPlot, LadderTable
 from pixelfit.app.widgets.prep_panel import PixelPrep
 from pixelfit.app.widgets.source_panel import ImportReport
-from pixelfit.app.workers import LadderWorker
+from pixelfit.app.workers import LadderWorker, run_in_thread
 
 APP_NAME = "pixelfit"
 DEMO_SET = "bottle-caps"
@@ -75,6 +75,9 @@ class MainWindow(QtWidgets.QMainWindow):
         self.settings = settings or QtCore.QSettings(APP_NAME, APP_NAME)
         self.ask = ask or self._ask_dialog
         self.worker: LadderWorker | None = None
+        # Reading and preparing patches run on a worker thread while the event loop turns.
+        self.session.runner = lambda job: run_in_thread(job, self)
+        self._close_when_ready = False
         self.setWindowTitle(APP_NAME)
         self.setAcceptDrops(True)
         self._make_actions()
@@ -147,12 +150,15 @@ class MainWindow(QtWidgets.QMainWindow):
                              s.subscribe("prep", self._update_actions), s.subscribe("rungs", self._update_actions),
                              s.subscribe("dataset", self._dataset_opened),
                              s.subscribe("explain", self._show_explanation), s.subscribe("compare", self._show_comparison),
-                             s.subscribe("run", self._collector_for_run)]
+                             s.subscribe("run", self._collector_for_run), s.subscribe("busy", self._busy_changed)]
         self._update_actions()
         self.resize(1680, 1000)
         # The trainer's fork server imports scikit-learn in its own process, so the first climb
         # does not wait one to two seconds for it.
         QtCore.QTimer.singleShot(0, self, _warm_up_trainer)
+        # One full collection while the window comes up, then the libraries' objects are frozen:
+        # later collections walk only what the session makes (see _collector_for_run).
+        QtCore.QTimer.singleShot(0, self, self._collect_and_freeze)
 
     # ---- actions ------------------------------------------------------------------------------
 
@@ -208,15 +214,26 @@ class MainWindow(QtWidgets.QMainWindow):
 
     def _update_actions(self, *_) -> None:
         s = self.session
-        self.act_climb.setEnabled(not s.running and s.prep is not None)
+        self.act_climb.setEnabled(not s.running and not s.preparing and s.prep is not None)
         self.act_halt.setEnabled(s.running)
         for a in (self.act_open, self.act_open_npz):
-            a.setEnabled(not s.running)
+            a.setEnabled(not s.running and not s.preparing)
         self.act_save.setEnabled(s.selected is not None)
         self.act_export.setEnabled(s.selected is not None)
         self.act_report.setEnabled(not s.running and bool(s.rungs))
         title = APP_NAME if s.dataset is None else f"{Path(s.dataset.source).name} — {APP_NAME}"
         self.setWindowTitle(title)
+
+    def _busy_changed(self) -> None:
+        self._update_actions()
+        if self.session.preparing:
+            self.statusBar().showMessage("preparing the patches…")
+        else:
+            self.statusBar().clearMessage()
+            QtCore.QTimer.singleShot(250, self._collect_and_freeze)
+            if self._close_when_ready:
+                self._close_when_ready = False
+                QtCore.QTimer.singleShot(0, self, self.close)
 
     def _message(self, text: str, error: bool) -> None:
         self.strip.show_message(text, error)
@@ -272,22 +289,24 @@ class MainWindow(QtWidgets.QMainWindow):
             self.compare_view.raise_()
 
     def _collector_for_run(self) -> None:
-        """Keep Python's full garbage collection out of a climb.
+        """Keep Python's full garbage collection out of the window's work.
 
-        A full collection walks every object the window holds (data set, rungs, maps, plots) and
-        stalled the event loop by over 100 ms mid-climb. While a ladder climbs, what existed before
-        it is frozen (left out of collections); a quarter second after it ends, one collection runs
-        and everything is frozen again, so the next climb starts from a clean heap.
+        A full collection walks every object the window holds (data set, rungs, maps, plots, the
+        libraries' own): over 100 ms mid-climb, and as long after each climb when everything was
+        unfrozen and collected (benchmarks/bench_gui_million.py). So what exists when a ladder starts
+        is frozen (left out of collections), and a quarter second after a climb or a preparation
+        ends, what was made since is collected and frozen too. Frozen objects are still freed by
+        reference counting as ever (the patches, the prepared matrices, the models); only garbage
+        in reference cycles among them waits until the window is released.
         """
         if self.session.running:
             gc.freeze()
         else:
-            gc.unfreeze()
             QtCore.QTimer.singleShot(250, self._collect_and_freeze)
 
     def _collect_and_freeze(self) -> None:
-        if not self.session.running:
-            gc.collect()
+        if not self.session.running and not self.session.preparing:
+            gc.collect()  # frozen objects are left out: this walks only what was made since
             gc.freeze()
 
     def _dataset_opened(self) -> None:
@@ -422,6 +441,10 @@ class MainWindow(QtWidgets.QMainWindow):
 
     def closeEvent(self, event: QtGui.QCloseEvent) -> None:
         s = self.session
+        if s.preparing:  # a job's thread is still running: close once it has returned
+            self._close_when_ready = True
+            event.ignore()
+            return
         if s.running and not self.ask("Stop the ladder?", "A ladder is still climbing. Stop it and close?"):
             event.ignore()
             return

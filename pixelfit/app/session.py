@@ -26,6 +26,15 @@ Events (name: when)
 ``explain``     a patch's call by the selected rung was explained (see :attr:`Session.explanation`)
 ``compare``     two rungs were picked for comparison, or the pair was cleared (:attr:`Session.compared`)
 ``message``     a line for the status area: ``(text, is_error)``
+``busy``        patches started or stopped being read or prepared (see :attr:`Session.preparing`)
+
+Reading a file, preparing its patches and finding suspects take seconds on a large set; the
+session hands each such job to :attr:`Session.runner`, which runs it here and now by default.
+The window's runner runs the job on a worker thread and keeps its event loop turning meanwhile,
+so the session's code reads as plain calls while the window stays responsive. Each job is
+computed from values captured before it starts and changes nothing until it returns; what the
+panels need per patch set (class counts, the histogram, the rows of each data-check finding) is
+computed in the job too (:class:`PrepSummary`), so no panel walks a million patches on the GUI thread.
 
 The data check itself comes with every prepared set (:attr:`Prepared.check`, the same core call
 as ``pixelfit check``), so ``prep`` announces its new findings too.
@@ -41,6 +50,7 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any, TypeVar
 
 import numpy as np
 
@@ -58,7 +68,59 @@ from pixelfit.robustness import DEFAULT_REPLICATES, Checks, CheckSettings
 from pixelfit.rulefile import Rule, load_rule, parse_rule, rule_document, save_rung
 
 EVENTS = ("dataset", "prep", "gallery", "settings", "run", "progress", "rungs", "selection", "threshold",
-          "map", "spec", "check", "axis", "checks", "explain", "compare", "message")
+          "map", "spec", "check", "axis", "checks", "explain", "compare", "message", "busy")
+
+#: runner(job) -> job(), raising what it raises; see the module docstring.
+Runner = Callable[[Callable[[], Any]], Any]
+T = TypeVar("T")
+
+
+def run_here(job: Callable[[], T]) -> T:
+    """The default :data:`Runner`: the job on the calling thread."""
+    return job()
+
+
+class PrepSummary:
+    """What the panels show of one prepared set, computed once with it (off the GUI thread in the window).
+
+    ``counts``: patches per class (sorted by name); ``histogram``: grey-level counts of the
+    training pixels and the thresholds in use (see :meth:`Session.histogram`); per data-check
+    finding, the flagged rows in import order and each one's group name (``rows``, ``groups``).
+    """
+
+    def __init__(self, dataset: Dataset, prep: Prepared | None):
+        self.dataset = dataset
+        self.prep = prep
+        labels, n = np.unique(dataset.labels, return_counts=True)
+        self.counts = {str(c): int(k) for c, k in zip(labels, n)}
+        self.histogram: tuple[np.ndarray, np.ndarray | None] = (np.zeros(256, np.int64), None)
+        self.rows: dict[str, np.ndarray] = {f: np.zeros(0, np.intp) for f in FINDINGS}
+        self.groups: dict[str, np.ndarray] = {f: np.zeros(0, object) for f in FINDINGS}
+        if prep is None:
+            return
+        train = prep.dataset.images[~prep.test_mask]
+        counts = grey_histogram(train).astype(np.int64)
+        b = prep.binarizer
+        thresholds = np.array([b.threshold], np.float64) if b.method in ("fixed", "otsu") else b.patch_thresholds(train)
+        self.histogram = (counts, thresholds)
+        if prep.check is not None:
+            found: dict[str, tuple[list[int], list[str]]] = {f: ([], []) for f in FINDINGS}
+            for i, f, g in prep.check.findings:
+                found[f][0].append(i)
+                found[f][1].append(g)
+            for f, (rows, groups) in found.items():
+                r = np.asarray(rows, np.intp)
+                order = np.argsort(r, kind="stable")
+                self.rows[f] = r[order]
+                self.groups[f] = np.asarray(groups, object)[order]
+
+
+def suspect_rows(dataset: Dataset, suspects: list[dict] | None) -> np.ndarray:
+    """Dataset rows of the suspects (highest score first), found by their names."""
+    if not suspects:
+        return np.zeros(0, np.intp)
+    where = {n: i for i, n in enumerate(dataset.names)}
+    return np.array([where[s["path"]] for s in suspects if s["path"] in where], np.intp)
 
 #: Per-pixel maps the inspector can show: rung maps first, then maps of the training data.
 MAP_KINDS = {"native": "the rung's own map", "permutation": "permutation (held-out)",
@@ -145,7 +207,14 @@ class RunSpec:
     seed: int
     scheduler: str | None = None  # a Dask scheduler's address: the lut searches run on that cluster
     checks: CheckSettings | None = None  # the post-pass after the ladder, None for none
-    grey_test: np.ndarray | None = None  # grey held-out patches, for the stress tests
+    grey_test: np.ndarray | None = None  # grey held-out patches, for the stress tests (None: taken from prep)
+
+    def held_out_grey(self) -> np.ndarray:
+        """The grey held-out patches: ``grey_test``, else a copy of the prepared set's (a large copy
+        on a large set: the worker makes it, on its own thread)."""
+        if self.grey_test is not None:
+            return self.grey_test
+        return self.prep.dataset.images[self.prep.test_mask]
 
 
 class Session:
@@ -196,6 +265,12 @@ class Session:
         #: The two rungs picked for comparison (keys), or None.
         self.compared: tuple[str, str] | None = None
         self._rule_cache: tuple[tuple, Rule] | None = None
+        #: Runs the long jobs (reading, preparing, finding suspects); see the module docstring.
+        self.runner: Runner = run_here
+        #: True while a job runs: the controls that would start another wait.
+        self.preparing = False
+        self._summary: PrepSummary | None = None
+        self._suspect_rows: tuple[object, np.ndarray] | None = None  # (suspects list, their rows)
 
     # ---- events -------------------------------------------------------------------------------
 
@@ -220,19 +295,60 @@ class Session:
 
     # ---- data ---------------------------------------------------------------------------------
 
+    def _off_thread(self, job: Callable[[], T]) -> T:
+        """``job()`` through :attr:`runner`, with :attr:`preparing` set (and ``busy`` told) meanwhile."""
+        self.preparing = True
+        self._emit("busy")
+        try:
+            return self.runner(job)
+        finally:
+            self.preparing = False
+            self._emit("busy")
+
+    def _refuse_while_preparing(self) -> bool:
+        if self.preparing:
+            self.say("the patches are still being prepared; wait a moment", True)
+        return self.preparing
+
+    def _prepare_job(self, dataset: Dataset, positive: str | None
+                     ) -> Callable[[], tuple[Prepared | PixelfitError, PrepSummary]]:
+        """A job that prepares ``dataset`` with the current settings (captured now) and summarizes
+        it: returns (prepared set or the PixelfitError that refused it, summary)."""
+        binarizer, fraction, seed, split = self.binarizer, self.test_fraction, self.seed, self.split
+
+        def job() -> tuple[Prepared | PixelfitError, PrepSummary]:
+            try:
+                prep: Prepared | PixelfitError = prepare(dataset, binarizer, positive, fraction, seed, split)
+            except PixelfitError as exc:
+                prep = exc
+            if isinstance(prep, Prepared):
+                prep.train_fingerprint  # noqa: B018 - a cached hash of the training set, made here, not when a rule is saved
+            return prep, PrepSummary(dataset, prep if isinstance(prep, Prepared) else None)
+
+        return job
+
     def open(self, path: str | os.PathLike) -> bool:
         """Import ``path``; on bad input the error becomes a message and the old state stays."""
         if self.running:
             self.say("a ladder is running; stop it before opening other patches", True)
             return False
+        if self._refuse_while_preparing():
+            return False
+        dataset: list[Dataset] = []
+
+        def job() -> tuple[Prepared | PixelfitError, PrepSummary]:
+            dataset.append(load_dataset(path))
+            return self._prepare_job(dataset[0], None)()
+
         try:
-            ds = load_dataset(path)
+            prep, summary = self._off_thread(job)
         except PixelfitError as exc:
             self.refuse(exc)
             return False
         except OSError as exc:  # a folder vanishing mid-import, a dead network share
             self.say(f"{path}: cannot read ({exc.strerror or exc})", True)
             return False
+        ds = dataset[0]
         self.dataset = ds
         self.prep = None  # the old patches' binarized set must not meet the new patches
         self.positive = None
@@ -240,8 +356,9 @@ class Session:
         self._clear_rungs()
         self.progress_state = (0, 0, "")  # nothing climbed on these patches yet
         self.planned = 0
+        self._summary = summary
         self._emit("dataset")
-        self._rebuild_prep()
+        self._take_prep(prep, summary)
         self._emit("progress")
         note = f"; skipped {len(ds.skipped)} file(s)" if ds.skipped else ""
         self.say(f"opened {Path(ds.source).name or ds.source}: {len(ds)} patches of {ds.shape[0]}x{ds.shape[1]}{note}")
@@ -249,6 +366,8 @@ class Session:
 
     def set_binarizer(self, method: str, threshold: float | None = None, invert: bool = False) -> bool:
         """Change the binarization; the gallery and histogram follow. Bad settings -> message."""
+        if self._refuse_while_preparing():
+            return False
         try:
             b = Binarizer(method, None if method != "fixed" else threshold, invert)
         except PixelfitError as exc:
@@ -261,7 +380,7 @@ class Session:
         return True
 
     def set_positive(self, name: str | None) -> None:
-        if name == self.positive:
+        if name == self.positive or self._refuse_while_preparing():
             return
         self.positive = name
         self._rebuild_prep()
@@ -271,15 +390,34 @@ class Session:
             self.prep = None
             self._emit("prep")
             return
-        try:
-            self.prep = prepare(self.dataset, self.binarizer, self.positive, self.test_fraction, self.seed,
-                                self.split)
-        except PixelfitError as exc:
+        prep, summary = self._off_thread(self._prepare_job(self.dataset, self.positive))
+        self._take_prep(prep, summary)
+
+    def _take_prep(self, prep: Prepared | PixelfitError, summary: PrepSummary) -> None:
+        if isinstance(prep, PixelfitError):
             self.prep = None
-            self.refuse(exc)
+            self.refuse(prep)
         else:
-            self.positive = self.prep.positive
+            self.prep = prep
+            self.positive = prep.positive
+        self._summary = summary
         self._emit("prep")
+
+    def summary(self) -> PrepSummary | None:
+        """The summary of the current prepared set (of the dataset alone when it could not be
+        prepared); None with nothing open. Made here, on the calling thread, when missing."""
+        if self.dataset is None:
+            return None
+        s = self._summary
+        # A summary made with the dataset serves while its prepared set is being taken in (prep None).
+        if s is None or s.dataset is not self.dataset or (s.prep is not self.prep and self.prep is not None):
+            s = self._summary = PrepSummary(self.dataset, self.prep)
+        return s
+
+    def class_counts(self) -> dict[str, int]:
+        """Patches per class of the open dataset, sorted by class name (empty with nothing open)."""
+        s = self.summary()
+        return {} if s is None else dict(s.counts)
 
     def binarized(self, indices: np.ndarray) -> np.ndarray:
         """Binarized patches of shape (len(indices), h, w), bool, with the current settings."""
@@ -292,14 +430,10 @@ class Session:
         The thresholds are one value for the global methods and one per training patch for the
         per-patch methods; None before a dataset is prepared.
         """
-        if self.prep is None:
+        s = self.summary()
+        if self.prep is None or s is None:
             return np.zeros(256, np.int64), None
-        train = self.prep.dataset.images[~self.prep.test_mask]
-        counts = grey_histogram(train).astype(np.int64)
-        b = self.prep.binarizer
-        if b.method in ("fixed", "otsu"):
-            return counts, np.array([b.threshold], np.float64)
-        return counts, b.patch_thresholds(train)
+        return s.histogram
 
     # ---- data check ---------------------------------------------------------------------------
 
@@ -315,26 +449,40 @@ class Session:
     def check_rows(self, finding: str) -> np.ndarray:
         """Dataset rows flagged with ``finding``, in import order (suspects: highest score first)."""
         c = self.check
-        if c is None or self.dataset is None:
+        s = self.summary()
+        if c is None or s is None or self.dataset is None:
             return np.zeros(0, np.intp)
         if finding == "suspect":
-            where = {n: i for i, n in enumerate(self.dataset.names)}
-            return np.array([where[s["path"]] for s in c.suspects or [] if s["path"] in where], np.intp)
-        return np.array(sorted(i for i, f, _ in c.findings if f == finding), np.intp)
+            if self._suspect_rows is None or self._suspect_rows[0] is not c.suspects:
+                self._suspect_rows = (c.suspects, suspect_rows(self.dataset, c.suspects))
+            return self._suspect_rows[1]
+        return s.rows[finding]
 
     def check_group(self, row: int, finding: str) -> np.ndarray:
         """The group a flagged patch belongs to under ``finding``: the patch first, then the others."""
         c = self.check
-        if c is None:
+        s = self.summary()
+        if c is None or s is None:
             return np.zeros(0, np.intp)
-        group = next((g for i, f, g in c.findings if i == row and f == finding), "")
-        others = [int(i) for i in c.members(group) if i != row]
-        return np.array([row] + others, np.intp)
+        rows = s.rows.get(finding, np.zeros(0, np.intp))
+        at = int(np.searchsorted(rows, row))
+        group = str(s.groups[finding][at]) if at < len(rows) and rows[at] == row else ""
+        members = c.members(group)
+        return np.concatenate([[row], members[members != row]]).astype(np.intp)
 
     def _find_suspects(self) -> None:
         if self.run_prep is None or self.run_prep.check is None:
             return
-        self.run_prep.check.suspects = suspect_labels(self.run_prep, self.rungs)
+        prep, rungs = self.run_prep, list(self.rungs)
+        check = self.run_prep.check
+
+        def job() -> tuple[list[dict] | None, np.ndarray]:
+            suspects = suspect_labels(prep, rungs)
+            return suspects, suspect_rows(prep.dataset, suspects)
+
+        suspects, rows = self._off_thread(job)
+        check.suspects = suspects
+        self._suspect_rows = (suspects, rows)
         self._emit("check")
 
     def set_gallery_class(self, name: str | None) -> None:
@@ -403,6 +551,8 @@ class Session:
         if self.running:
             self.say("a ladder is already running", True)
             return None
+        if self._refuse_while_preparing():
+            return None
         try:
             prep = self._require_prep()
             plan = self._plan(prep)
@@ -422,8 +572,8 @@ class Session:
         self._run_started = time.monotonic()
         self._emit("run")
         self.say(f"climbing {len(plan)} rungs on {prep.binarizer.describe()} patches")
-        return RunSpec(prep, plan, self.folds, self.seed, self.scheduler, CheckSettings(self.replicates, seed=self.seed),
-                       prep.dataset.images[prep.test_mask])
+        # The grey held-out patches are copied by the worker (held_out_grey), not here on the GUI thread.
+        return RunSpec(prep, plan, self.folds, self.seed, self.scheduler, CheckSettings(self.replicates, seed=self.seed))
 
     def report_progress(self, done: int, total: int, message: str) -> None:
         self.progress_state = (done, total, message)
@@ -452,7 +602,9 @@ class Session:
         self.recommended = conclude(self.rungs, self.run_prep.y_test)
         self.answer = apply_spec(self.rungs, self.run_prep.y_train, self.run_prep.y_test, self.spec)
         for r in self.rungs:
-            measure_integer(r, self.run_prep.X_test, self.run_prep.y_test)
+            # Measured by the worker at the rung's own threshold; again here only where the spec moved it.
+            if r.quantized is None or r.quantized["threshold"] != r.operating_point["threshold"]:
+                measure_integer(r, self.run_prep.X_test, self.run_prep.y_test)
         self._emit("rungs")
 
     def set_checks(self, checks: Checks) -> None:
@@ -696,7 +848,10 @@ class Session:
             if prep is None:
                 return None, "no data"
             if self._data_maps is None or self._data_maps[0] is not prep:
-                self._data_maps = (prep, prep.data_maps())
+                if self.preparing:  # asked again while they are computed (seconds on a large set)
+                    return None, f"{MAP_KINDS[self.map_kind]}: computing…"
+                maps = self._off_thread(prep.data_maps)
+                self._data_maps = (prep, maps)
             return self._data_maps[1][self.map_kind], MAP_KINDS[self.map_kind]
         r = self.selected
         if r is None:

@@ -17,11 +17,12 @@ from __future__ import annotations
 import sys
 import threading
 import traceback
+from collections.abc import Callable
 
 from pixelfit.app._qt import QtCore
 from pixelfit.app.session import RunSpec
 from pixelfit.errors import PixelfitError
-from pixelfit.ladder import LadderCancelled
+from pixelfit.ladder import LadderCancelled, measure_integer
 from pixelfit.ladder_process import TrainerLost, run_ladder_in_process
 from pixelfit.robustness import CheckProgress
 
@@ -67,8 +68,11 @@ class LadderWorker(QtCore.QThread):
         try:
             for pr in run_ladder_in_process(spec.prep, spec.plan, spec.folds, spec.seed, cancel=self._cancel.is_set,
                                             scheduler=spec.scheduler, checks=spec.checks,
-                                            grey_test=spec.grey_test):
+                                            grey_test=spec.held_out_grey()):
                 if pr.rung is not None:
+                    # The integer predictor's held-out check (a tree walks every held-out patch) on
+                    # this thread, not the GUI thread's.
+                    measure_integer(pr.rung, spec.prep.X_test, spec.prep.y_test)
                     self.rung_ready.emit(pr.rung)
                 if isinstance(pr, CheckProgress) and pr.checks is not None:
                     self.checks_ready.emit(pr.checks)
@@ -90,3 +94,39 @@ class LadderWorker(QtCore.QThread):
         """Ask the run to stop and wait for the thread to end; True when it has ended."""
         self.cancel()
         return self.wait(timeout_ms)
+
+
+class Job(QtCore.QThread):
+    """Runs one function on its own thread; :func:`run_in_thread` waits for it with the event loop turning."""
+
+    def __init__(self, work: Callable[[], object], parent: QtCore.QObject | None = None):
+        super().__init__(parent)
+        self._work = work
+        self.result: object = None
+        self.error: BaseException | None = None
+
+    def run(self) -> None:  # runs in the job's thread
+        try:
+            self.result = self._work()
+        except BaseException as exc:  # noqa: BLE001 - raised again on the GUI thread by run_in_thread
+            self.error = exc
+
+
+def run_in_thread(work: Callable[[], object], parent: QtCore.QObject | None = None) -> object:
+    """``work()`` on a worker thread; meanwhile this (GUI) thread's event loop keeps turning, so the
+    window paints and its timers fire. Returns its result, or raises what it raised.
+
+    The session's :attr:`~pixelfit.app.session.Session.runner` in the window: the session's long jobs
+    (reading a file, preparing its patches) read as plain calls. The callers disable what could start
+    a second job while one runs (``Session.preparing``).
+    """
+    job = Job(work, parent)
+    loop = QtCore.QEventLoop()
+    job.finished.connect(loop.quit)
+    job.start()
+    loop.exec()  # finished is queued to this thread, so it reaches the loop even when the job ends first
+    job.wait()
+    job.deleteLater()
+    if job.error is not None:
+        raise job.error
+    return job.result

@@ -7,7 +7,7 @@ import numpy as np
 from pixelfit.app._qt import QtCore, QtWidgets
 from pixelfit.app.session import Session
 from pixelfit.app.widgets import Listens
-from pixelfit.app.widgets.gallery import PatchListModel
+from pixelfit.app.widgets.gallery import Pager, PatchListModel
 from pixelfit.data import FINDINGS
 
 #: What each finding means, as the view says it.
@@ -52,16 +52,30 @@ class DataCheckView(Listens, QtWidgets.QWidget):
         self.flagged = _tile_view(self.flagged_model)
         self.group = _tile_view(self.group_model)
         self.group_label = QtWidgets.QLabel(GROUP_HINT)
+        self.group_label.setWordWrap(True)
+        self.shown = QtWidgets.QLabel("")
+        self.pager = Pager(self.flagged_model)
+        self.group_shown = QtWidgets.QLabel("")
+        self.group_pager = Pager(self.group_model)
+        for p in (self.pager, self.group_pager):
+            p.back.clicked.connect(self._span_text)
+            p.next.clicked.connect(self._span_text)
         top = QtWidgets.QHBoxLayout()
         top.addWidget(QtWidgets.QLabel("finding"))
         top.addWidget(self.chooser)
         top.addStretch(1)
+        top.addWidget(self.shown)
+        top.addWidget(self.pager)
+        group_top = QtWidgets.QHBoxLayout()
+        group_top.addWidget(self.group_label, 1)
+        group_top.addWidget(self.group_shown)
+        group_top.addWidget(self.group_pager)
         lay = QtWidgets.QVBoxLayout(self)
         lay.setContentsMargins(2, 2, 2, 2)
         lay.addLayout(top)
         lay.addWidget(self.figures)
         lay.addWidget(self.flagged, 3)
-        lay.addWidget(self.group_label)
+        lay.addLayout(group_top)
         lay.addWidget(self.group, 1)
         self.chooser.activated.connect(lambda i: self.show_finding(self.chooser.itemData(i)))
         self.flagged.clicked.connect(lambda index: self.show_group(int(self.flagged_model.rows[index.row()])))
@@ -124,3 +138,10 @@ class DataCheckView(Listens, QtWidgets.QWidget):
             self.group.setIconSize(size)
         self.flagged_model.reset()
         self.group_model.reset()
+        self.pager.refresh()
+        self.group_pager.refresh()
+        self._span_text()
+
+    def _span_text(self) -> None:
+        self.shown.setText(self.flagged_model.span_text("flagged"))
+        self.group_shown.setText(self.group_model.span_text("in the group") if len(self.group_model.all_rows) else "")

@@ -59,6 +59,7 @@ class PixelPrep(Listens, QtWidgets.QGroupBox):
         self.listen(session, "prep", self.refresh)
         # A run starting or ending only locks or frees the controls: the histogram stays as it is.
         self.listen(session, "run", self._enable)
+        self.listen(session, "busy", self._enable)
         self.refresh()
 
     def _write_back(self, *_):
@@ -80,9 +81,10 @@ class PixelPrep(Listens, QtWidgets.QGroupBox):
     def _enable(self) -> None:
         s = self.session
         fixed = s.binarizer.method == "fixed"
+        idle = not s.running and not s.preparing
         for w in (self.method, self.level, self.invert):
-            w.setEnabled(not s.running and (w is not self.level or fixed))
-        self.line.setMovable(fixed and not s.running)
+            w.setEnabled(idle and (w is not self.level or fixed))
+        self.line.setMovable(fixed and idle)
 
     def refresh(self) -> None:
         s = self.session

@@ -54,6 +54,7 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
         self.listen(session, "check", self._badge)
         # A run starting or ending only locks or frees the class choice; the report stays.
         self.listen(session, "run", self._enable)
+        self.listen(session, "busy", self._enable)
         self.refresh()
 
     def _positive_chosen(self, index: int) -> None:
@@ -61,7 +62,8 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
 
     def _enable(self) -> None:
         ds = self.session.dataset
-        self.positive.setEnabled(ds is not None and len(ds.counts) > 1 and not self.session.running)
+        self.positive.setEnabled(ds is not None and len(self.session.class_counts()) > 1 and not self.session.running
+                                 and not self.session.preparing)
 
     def _badge(self) -> None:
         """Name what the data check found, in a few words; hide the badge when it found nothing."""
@@ -100,7 +102,7 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
         h, w = ds.shape
         rows = "".join(f"<tr><td>{html.escape(c)}</td><td align='right'>&nbsp;{n}</td>"
                        f"<td>{'&nbsp;&larr; to find' if c == s.positive else ''}</td></tr>"
-                       for c, n in ds.counts.items())
+                       for c, n in s.class_counts().items())
         split = ""
         if s.prep is not None:
             kind = ("given split" if s.prep.presplit else
@@ -111,7 +113,7 @@ class ImportReport(Listens, QtWidgets.QGroupBox):
         name = Path(ds.source).name or str(ds.source)
         self.summary.setText(f"<b>{html.escape(name)}</b><br>{len(ds)} patches of {h}&times;{w} "
                              f"({html.escape(ds.layout)}){split}<table>{rows}</table>")
-        for c in ds.counts:
+        for c in s.class_counts():
             self.positive.addItem(c, c)
         if s.positive is not None:
             self.positive.setCurrentIndex(self.positive.findData(s.positive))
