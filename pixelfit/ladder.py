@@ -33,6 +33,7 @@ from pixelfit.data import (
     check_data,
     check_seed,
     choose_positive,
+    distinct_count,
     fingerprint,
     grey_groups,
     grouped_split,
@@ -99,7 +100,7 @@ class Prepared:
         if self.split_method != "group-duplicates" or self.groups is None:
             return None
         g = self.groups[~self.test_mask]
-        return g if len(np.unique(g)) < len(g) else None
+        return g if distinct_count(g) < len(g) else None
     augment: str | None = None  # how the training rows were extended (``shift1``), None when not
 
     @property
@@ -275,7 +276,7 @@ def effective_folds(y: np.ndarray, folds: int, groups: np.ndarray | None = None)
     if folds < 2:
         raise TrainingError(f"cross-validation folds must be 0 (off) or at least 2, not {folds}", field="folds")
     if groups is not None:
-        n_groups = len(np.unique(groups))
+        n_groups = distinct_count(groups)
         if n_groups < folds:
             if n_groups >= 2:
                 return n_groups, (f"cross-validation uses {n_groups} folds, not {folds}: the training part "

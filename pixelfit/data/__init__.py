@@ -8,6 +8,7 @@ from pixelfit.data._check import (
     Groups,
     check_csv_rows,
     check_data,
+    distinct_count,
     grey_groups,
     pack_binarized,
 )
@@ -28,6 +29,6 @@ __all__ = [
     "METHODS", "Binarizer", "grey_histogram", "otsu_threshold", "MAX_SIDE", "Dataset", "Skipped", "binary_target",
     "choose_positive", "load_dataset", "load_for_apply", "read_patch", "fingerprint", "raw_fingerprint",
     "stratified_split", "SPLIT_METHODS", "grouped_split", "CHECK_KEYS", "FINDINGS", "DataCheck", "Groups",
-    "check_csv_rows", "check_data", "grey_groups", "pack_binarized", "check_seed",
+    "check_csv_rows", "check_data", "distinct_count", "grey_groups", "pack_binarized", "check_seed",
     "SHIFTS", "grey_perturbations", "shift_name", "shift_patches", "stuck_pixel", "with_shifts",
 ]

@@ -149,6 +149,11 @@ def _sorted_unique(values: np.ndarray) -> np.ndarray:
     return s[np.concatenate(([True], s[1:] != s[:-1]))] if len(s) else s
 
 
+def distinct_count(values: np.ndarray) -> int:
+    """How many distinct values ``values`` holds, by sorting (see :func:`_sorted_unique`)."""
+    return len(_sorted_unique(np.asarray(values).ravel()))
+
+
 def _near_duplicates(packed: np.ndarray, hashes: np.ndarray, keys: np.ndarray, train: np.ndarray,
                      test: np.ndarray, bits: Groups) -> tuple[np.ndarray, np.ndarray]:
     """Held-out rows with a training row at Hamming distance 0 or 1, and the bit group of one such row.
