@@ -26,6 +26,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import re
 import resource
 import subprocess
 import sys
@@ -96,19 +97,49 @@ def main() -> int:
         load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
         before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
         t0 = time.perf_counter()
-        child = subprocess.Popen(cmd, cwd=ROOT)
+        # The child's output passes through here, so that the step it was at is known at any moment.
+        child = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.STDOUT)
         done = threading.Event()
+        step = {"text": "(starting)", "peak": 0, "at": "", "when": 0.0}
+
+        def relay() -> None:
+            assert child.stdout is not None
+            line = b""
+            while chunk := os.read(child.stdout.fileno(), 4096):
+                sys.stdout.buffer.write(chunk)
+                sys.stdout.flush()
+                for ch in re.split(rb"([\r\n])", chunk):
+                    if ch in (b"\r", b"\n"):
+                        if line.strip():
+                            step["text"] = line.decode(errors="replace").strip()
+                        line = b""
+                    else:
+                        line += ch
+
+        def watch() -> None:  # the child's resident memory, twice a second, and the step at its peak
+            status = Path(f"/proc/{child.pid}/status")
+            while not done.wait(0.5):
+                try:
+                    rss = next(int(x.split()[1]) for x in status.read_text().splitlines() if x.startswith("VmRSS"))
+                except (OSError, StopIteration, ValueError):
+                    continue
+                if rss > step["peak"]:
+                    step.update(peak=rss, at=step["text"], when=time.perf_counter() - t0)
 
         def tick() -> None:
             while not done.wait(args.every):
                 print(f"\n[bench] {time.perf_counter() - t0:,.0f} s elapsed", file=sys.stderr, flush=True)
 
+        relayer = threading.Thread(target=relay, daemon=True)
+        relayer.start()
+        threading.Thread(target=watch, daemon=True).start()
         threading.Thread(target=tick, daemon=True).start()
         try:
             rc = child.wait()
         except KeyboardInterrupt:  # the child got the same Ctrl-C: let it keep its finished rungs
             rc = child.wait()
         done.set()
+        relayer.join(timeout=5)
         wall = time.perf_counter() - t0
         peak_kib = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
         peak = peak_kib * 1024 if sys.platform != "darwin" else peak_kib  # bytes on macOS
@@ -122,6 +153,9 @@ def main() -> int:
         print(f"\nexit code {rc}; {args.n:,} patches; load average at the start {load:.1f}")
         print(f"wall time {wall:,.1f} s ({wall / GOAL_SECONDS:.2f}x the 20-minute goal)")
         print(f"peak resident memory {peak / 2**30:.2f} GiB ({peak / GOAL_BYTES:.2f}x the 4 GiB goal)")
+        if step["peak"]:
+            print(f"largest resident memory sampled: {step['peak'] / 2**20:.2f} GiB at {step['when']:,.0f} s, "
+                  f"during: {step['at']}")
         if per_family:
             rungs = sum(per_family.values())
             print("seconds per family (rungs, from summary.json): "
