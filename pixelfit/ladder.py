@@ -571,7 +571,7 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
             choice, choice_y = _scores_of(est, X_all), y_all
         else:
             choice = oof
-        operating = {"test_points": operating_points(prep.y_test, test_scores)}
+        operating = {"test_points": operating_points(prep.y_test, test_scores, TEST_POINTS)}
     search = fam.search_facts(est)
     if plan is not None:
         search = {**plan.as_dict(), **(search or {})}
@@ -615,6 +615,10 @@ def _search_notice(family: str, size: int, plan, folds: int) -> _Notice | None:
                    f"{plan.estimated_seconds:,.0f} s per fit; beam search from the best sets of size "
                    f"{plan.largest_exact_size} instead (--exhaustive scores them all)")
 
+
+#: Held-out operating points kept per rung (``operating.test_points``): every distinct score up to
+#: this many, else this many at evenly spaced ranks (a large held-out part has a score per patch).
+TEST_POINTS = 1_000
 
 #: An exhaustive search estimated at least this long is announced before it starts.
 NOTICE_SECONDS = 2.0

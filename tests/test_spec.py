@@ -310,3 +310,17 @@ def test_window_tie_rows_agree(bottle_tree4):
     assert s.set_spec(0.7, 0.7, 0.95, None)
     assert s.threshold == rung.spec["threshold"] and s.threshold_chosen_on == "cv"
     assert s.answer is not None and s.answer["verdict"] in ("meets", "plausible", "fails")
+
+
+def test_operating_points_thinned_keep_rows_of_the_full_curve():
+    from pixelfit.evaluate import operating_points
+
+    rng = np.random.default_rng(3)
+    y = rng.random(5000) < 0.3
+    s = np.clip(y * 0.3 + rng.random(5000) * 0.7, 0, 1)
+    full = operating_points(y, s)
+    assert len(full) > 4000
+    thin = operating_points(y, s, max_points=100)
+    assert len(thin) == 100 and thin[0] == full[0] and thin[-1] == full[-1]
+    assert all(pt in full for pt in thin)  # every kept row is a row of the full curve, unchanged
+    assert operating_points(y, s, max_points=10_000) == full  # fewer candidates than the cap: all of them

@@ -119,11 +119,13 @@ def lower_bound(successes: float, n: float, confidence: float) -> float | None:
     return float(beta.ppf(1.0 - confidence, successes, n - successes + 1))
 
 
-def operating_points(y_true: np.ndarray, scores: np.ndarray) -> list[dict]:
+def operating_points(y_true: np.ndarray, scores: np.ndarray, max_points: int | None = None) -> list[dict]:
     """Precision and recall when calling positive for score > threshold, one row per candidate.
 
     Candidates: every distinct score, and 0 when every score is above 0; rows that call no patch
     positive are left out. Rows carry tp and fp too. Empty when there is no positive patch.
+    ``max_points`` keeps at most that many rows, at evenly spaced ranks of the candidates (the
+    first and the last included): a curve to draw or keep, not a set to choose a threshold on.
     """
     y = np.asarray(y_true, bool)
     s = np.asarray(scores, float)
@@ -137,9 +139,14 @@ def operating_points(y_true: np.ndarray, scores: np.ndarray) -> list[dict]:
     # patches with score > t: len - searchsorted(right)
     n_above = len(s) - np.searchsorted(order, cand, side="right")
     tp = len(pos_sorted) - np.searchsorted(pos_sorted, cand, side="right")
+    keep = n_above > 0
+    cand, n_above, tp = cand[keep], n_above[keep], tp[keep]
+    if max_points is not None and len(cand) > max_points:
+        pick = np.unique(np.round(np.linspace(0, len(cand) - 1, max(2, max_points))).astype(np.intp))
+        cand, n_above, tp = cand[pick], n_above[pick], tp[pick]
     n_pos = int(y.sum())
     return [{"threshold": float(t), "precision": float(a / k), "recall": float(a / n_pos), "tp": int(a),
-             "fp": int(k - a)} for t, k, a in zip(cand, n_above, tp) if k > 0]
+             "fp": int(k - a)} for t, k, a in zip(cand, n_above, tp)]
 
 
 def _margins(pt: dict, targets: dict[str, float]) -> list[float]:
