@@ -98,7 +98,8 @@ def main() -> int:
         before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
         t0 = time.perf_counter()
         # The child's output passes through here, so that the step it was at is known at any moment.
-        child = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.STDOUT)
+        child = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
+                                 env={**os.environ, "PYTHONUNBUFFERED": "1"})
         done = threading.Event()
         step = {"text": "(starting)", "peak": 0, "at": "", "when": 0.0}
 
