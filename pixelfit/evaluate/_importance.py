@@ -49,10 +49,10 @@ def permutation_map(est, X: np.ndarray, y: np.ndarray, shape: tuple[int, int], p
 
 def mean_difference_map(X: np.ndarray, y: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
     """Fraction of positives with the pixel lit minus fraction of negatives with it lit."""
-    X = np.asarray(X, dtype=np.float64)
+    X = np.asarray(X)  # averaged as it is: a float copy of a million patches is gigabytes
     y = np.asarray(y, bool)
-    pos = X[y].mean(axis=0) if y.any() else np.zeros(X.shape[1])
-    neg = X[~y].mean(axis=0) if (~y).any() else np.zeros(X.shape[1])
+    pos = X[y].mean(axis=0, dtype=np.float64) if y.any() else np.zeros(X.shape[1])
+    neg = X[~y].mean(axis=0, dtype=np.float64) if (~y).any() else np.zeros(X.shape[1])
     return (pos - neg).reshape(shape)
 
 
