@@ -529,8 +529,7 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
                   "f1_folds": [float(v) for v in f1s], "error_mean": float(np.mean(errs)),
                   "error_std": float(np.std(errs, ddof=1)),
                   "subsample": None if len(yc) == len(y_all) else {"n": len(yc), "of": len(y_all)}}
-        stop()
-        est = next(results)
+        est = next(results)  # final_fit looked at the cancel flag as it started
     finally:
         results.close()
     yield f"{family}-{size}: final fit"
