@@ -12,7 +12,7 @@ heartbeat timer on the GUI thread (bench_gui_stall.py's): a stall is the gap bet
 beyond the timer's interval.
 
 Phases: ``open`` (the window's open action on the file, until its patches are prepared and shown),
-``binarize`` (the method changed once, Otsu -> fixed level, until the new bits are ready),
+``binarize`` (the method changed Otsu -> fixed level and back, each until the new bits are ready),
 ``data check`` (the Data check tab, each finding chosen, the group of a flagged patch), ``climb``
 (one climb of a short ladder: ``--families``, ``--max-size``, ``--folds``; by default
 constant,nb,tree, max size 2, 3 folds), ``browse`` (after the climb: the gallery's class filter,
@@ -224,12 +224,18 @@ def main() -> int:
     print(f"  {ds.source}: {len(ds):,} patches of {ds.shape[0]}x{ds.shape[1]}; gallery shows "
           f"{w.gallery.model.rowCount():,} tiles ({w.gallery.count.text()})")
 
-    def binarize() -> None:
-        i = w.prep_panel.method.findData("fixed")
-        w.prep_panel.method.setCurrentIndex(i)
-        w.prep_panel.method.activated.emit(i)
+    def binarize_to(method: str):
+        def change() -> None:
+            i = w.prep_panel.method.findData(method)
+            w.prep_panel.method.setCurrentIndex(i)
+            w.prep_panel.method.activated.emit(i)
+        return change
 
-    phase("binarize", binarize)
+    phase("binarize", binarize_to("fixed"))
+    print(f"  now {s.binarizer.describe()}")
+    # Back to Otsu, so that the data check and the climb see the file's own bits (a fixed level
+    # of 128 leaves most of these patches blank: a climb on them measures little).
+    phase("binarize", binarize_to("otsu"))
     print(f"  now {s.binarizer.describe()}")
 
     def data_check() -> None:
