@@ -373,10 +373,22 @@ def subsample_for(family: str, y: np.ndarray, seed: int) -> np.ndarray | None:
     """The training rows ``family`` trains on (CV folds and final fit) when the training part is
     larger than its size in :data:`SUBSAMPLED_FAMILIES`: a stratified subsample of that many,
     drawn from :func:`training_sample`'s rows when there are any; None when it trains on all."""
-    n = SUBSAMPLED_FAMILIES.get(family)
-    if n is None or len(y) <= n:
+    if _family_size(family, len(y)) is None:
         return None
-    rows = training_sample(y, seed)
+    return _family_rows(family, y, seed, training_sample(y, seed))
+
+
+def _family_size(family: str, n_train: int) -> int | None:
+    """The subsample size of ``family`` on ``n_train`` training patches; None: it trains on all."""
+    n = SUBSAMPLED_FAMILIES.get(family)
+    return None if n is None or n_train <= n else n
+
+
+def _family_rows(family: str, y: np.ndarray, seed: int, rows: np.ndarray | None) -> np.ndarray | None:
+    """:func:`subsample_for` given :func:`training_sample`'s ``rows`` already."""
+    n = _family_size(family, len(y))
+    if n is None:
+        return None
     if rows is None:
         return stratified_subsample(y, n, seed)
     return rows if n >= len(rows) else rows[stratified_subsample(y[rows], n, seed)]
@@ -397,7 +409,7 @@ def sampling_facts(n_train: int, n_test: int) -> dict:
         return {"n": cap, "of": n} if n > cap else None
 
     return {"cv_and_checks": part(n_train, SUBSAMPLE_PATCHES),
-            "subsampled_families": {f: n for f, n in SUBSAMPLED_FAMILIES.items() if n_train > n},
+            "subsampled_families": {f: n for f, n in SUBSAMPLED_FAMILIES.items() if _family_size(f, n_train)},
             "importance_and_stress": part(n_test, HELD_OUT_SAMPLE)}
 
 
@@ -461,7 +473,7 @@ def _rung_steps(prep: Prepared, family: str, size: int, folds: int, seed: int,
     X_all, y_all = prep.X_train, prep.y_train
     X, y, groups = X_all, y_all, prep.train_groups
     rows = training_sample(y_all, seed)  # a large set: every family's CV folds on these rows
-    sub = subsample_for(family, y_all, seed)  # the slow families: CV folds and final fit on these
+    sub = _family_rows(family, y_all, seed, rows)  # the slow families: CV folds and final fit on these
     if sub is not None:  # everything fitted below sees the subsample; the held-out part stays whole
         X, y = X_all[sub], y_all[sub]
         groups = None if groups is None else groups[sub]

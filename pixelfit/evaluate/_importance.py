@@ -36,7 +36,9 @@ def permutation_map(est, X: np.ndarray, y: np.ndarray, shape: tuple[int, int], p
     importance of exactly 0. None means all pixels.
     """
     # Bits stay bits: every one of the (pixels x repeats) predictions copies the matrix once.
-    X = np.asarray(X, dtype=bool) if np.isin(X, (0, 1)).all() else np.asarray(X, dtype=np.float64)
+    X = np.asarray(X)
+    if X.dtype != bool:
+        X = X.astype(bool) if np.isin(X, (0, 1)).all() else X.astype(np.float64)
     out = np.zeros(X.shape[1])
     cols = np.arange(X.shape[1]) if pixels is None else np.asarray(pixels, dtype=np.intp)
     if len(X) == 0 or len(cols) == 0:
